@@ -1,0 +1,137 @@
+"""The cache: one SQLite file of JSON values and byte arrays, keyed by content.
+
+Keys are content addresses (git blob sha, canonical SMILES, settings hash), stamped with the
+tool version so a new release never reads an old layout. Values are JSON or raw bytes (for
+`.npz` arrays), never pickle: a CI cache can be restored from an untrusted branch.
+
+pre-commit runs hooks in parallel, so several processes may write at once: WAL mode, a busy
+timeout, and short transactions keep the file consistent.
+"""
+from __future__ import annotations
+
+import json
+import os
+import sqlite3
+import threading
+import zlib
+from collections.abc import Iterable, Mapping
+from typing import Any
+
+from parentage import __version__
+from parentage.errors import ParentageError
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS entry (
+    namespace TEXT NOT NULL,
+    key TEXT NOT NULL,
+    version TEXT NOT NULL,
+    value BLOB NOT NULL,
+    PRIMARY KEY (namespace, key, version)
+);
+"""
+
+
+class Store:
+    """`get`/`put` JSON values and `get_bytes`/`put_bytes` blobs under (namespace, key)."""
+
+    def __init__(self, path: str | None, version: str = __version__) -> None:
+        self.path = path  # None: an in-memory store (nothing is kept)
+        self.version = version
+        self._lock = threading.Lock()
+        self._conn: sqlite3.Connection | None = None
+        self.hits = 0
+        self.misses = 0
+
+    def _connect(self) -> sqlite3.Connection:
+        if self._conn is None:
+            target = ":memory:"
+            if self.path is not None:
+                os.makedirs(os.path.dirname(os.path.abspath(self.path)), exist_ok=True)
+                target = self.path
+            try:
+                conn = sqlite3.connect(target, timeout=60, isolation_level=None,
+                                       check_same_thread=False)
+                conn.execute("PRAGMA busy_timeout = 60000")
+                if self.path is not None:
+                    conn.execute("PRAGMA journal_mode = WAL")
+                conn.execute("PRAGMA synchronous = NORMAL")
+                conn.executescript(_SCHEMA)
+            except sqlite3.DatabaseError as exc:
+                raise ParentageError(f"{self.path}: cache is not usable ({exc}); delete it and "
+                                     "run again") from None
+            self._conn = conn
+        return self._conn
+
+    def close(self) -> None:
+        if self._conn is not None:
+            self._conn.close()
+            self._conn = None
+
+    # -- bytes ------------------------------------------------------------------------------
+    def get_bytes(self, namespace: str, key: str) -> bytes | None:
+        with self._lock:
+            row = self._connect().execute(
+                "SELECT value FROM entry WHERE namespace=? AND key=? AND version=?",
+                (namespace, key, self.version)).fetchone()
+        if row is None:
+            self.misses += 1
+            return None
+        self.hits += 1
+        return zlib.decompress(row[0])
+
+    def put_bytes(self, namespace: str, key: str, value: bytes) -> None:
+        self.put_many_bytes(namespace, [(key, value)])
+
+    def put_many_bytes(self, namespace: str, items: Iterable[tuple[str, bytes]]) -> None:
+        rows = [(namespace, k, self.version, zlib.compress(v, 1)) for k, v in items]
+        if not rows:
+            return
+        with self._lock:
+            conn = self._connect()
+            conn.execute("BEGIN IMMEDIATE")
+            try:
+                conn.executemany("INSERT OR REPLACE INTO entry VALUES (?, ?, ?, ?)", rows)
+                conn.execute("COMMIT")
+            except BaseException:
+                conn.execute("ROLLBACK")
+                raise
+
+    # -- JSON -------------------------------------------------------------------------------
+    def get(self, namespace: str, key: str) -> Any | None:
+        raw = self.get_bytes(namespace, key)
+        return None if raw is None else json.loads(raw)
+
+    def put(self, namespace: str, key: str, value: Any) -> None:
+        self.put_many(namespace, {key: value})
+
+    def get_many(self, namespace: str, keys: Iterable[str]) -> dict[str, Any]:
+        wanted = list(dict.fromkeys(keys))
+        out: dict[str, Any] = {}
+        with self._lock:
+            conn = self._connect()
+            for start in range(0, len(wanted), 500):
+                chunk = wanted[start:start + 500]
+                marks = ",".join("?" * len(chunk))
+                for key, value in conn.execute(
+                        f"SELECT key, value FROM entry WHERE namespace=? AND version=? "
+                        f"AND key IN ({marks})", (namespace, self.version, *chunk)):
+                    out[key] = json.loads(zlib.decompress(value))
+        self.hits += len(out)
+        self.misses += len(wanted) - len(out)
+        return out
+
+    def put_many(self, namespace: str, items: Mapping[str, Any]) -> None:
+        self.put_many_bytes(namespace, ((k, json.dumps(v, separators=(",", ":")).encode())
+                                        for k, v in items.items()))
+
+
+def default_store_path(git_dir: str | None, configured: str | None, root: str) -> str | None:
+    """`PARENTAGE_CACHE` wins, then the config's `cache`, then `<git dir>/parentage/`."""
+    env = os.environ.get("PARENTAGE_CACHE")
+    if env:
+        return os.path.join(env, "store.sqlite")
+    if configured:
+        return os.path.join(root, configured, "store.sqlite")
+    if git_dir:
+        return os.path.join(git_dir, "parentage", "store.sqlite")
+    return None
