@@ -73,3 +73,19 @@ def compare(base: Iterable[Finding], head: Iterable[Finding]) -> list[Finding]:
 def blocking(findings: Iterable[Finding], fail_on: Iterable[str]) -> list[Finding]:
     kinds = set(fail_on)
     return [f for f in findings if f.status == "new" and f.kind in kinds]
+
+
+class Review(NamedTuple):
+    """Everything a renderer needs about one review of base..head."""
+
+    base: str
+    head: str
+    ontologies: tuple[str, ...]
+    changes: Mapping[str, tuple[str, ...]]  # added / removed / obsoleted / edited -> ids
+    edited_fields: Mapping[str, tuple[str, ...]]  # id -> changed field names
+    affected: tuple[str, ...]
+    findings: tuple[Finding, ...]
+    names: Mapping[str, str]  # id -> name, for every id a finding mentions
+    fail_on: tuple[str, ...] = DEFAULT_FAIL_ON
+    model_revision: str | None = None  # revision the model verdicts were trained on
+    notes: tuple[str, ...] = ()  # one-line remarks for the reader (e.g. model not trained)
