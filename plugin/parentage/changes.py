@@ -1,0 +1,89 @@
+"""`ChangeSet`: what a change did to the terms, found by comparing stanza digests first."""
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from typing import Any, NamedTuple
+
+from parentage.snapshot import STRUCTURE_FIELDS, Ontology, Term
+
+FIELDS = ("structure", "parents", "relationships", "name", "synonyms", "disjointness",
+          "obsolescence", "other")
+
+
+class ChangeSet(NamedTuple):
+    added: tuple[str, ...]
+    removed: tuple[str, ...]
+    obsoleted: tuple[str, ...]
+    edited: tuple[str, ...]
+    fields: Mapping[str, tuple[str, ...]]  # edited or obsoleted id -> changed FIELDS
+    moved: Mapping[str, tuple[str, str]]  # id -> (base path, head path) when its file changed
+
+    def to_json(self) -> dict[str, Any]:
+        return {"added": list(self.added), "removed": list(self.removed),
+                "obsoleted": list(self.obsoleted), "edited": list(self.edited)}
+
+    @property
+    def touched(self) -> tuple[str, ...]:
+        return self.added + self.obsoleted + self.edited
+
+
+def changed_fields(old: Term, new: Term, structure_props: frozenset[str]) -> tuple[str, ...]:
+    """Which FIELDS differ between two versions of one term."""
+    out = []
+
+    def props(term: Term, inside: bool) -> list[tuple[str, str]]:
+        return sorted(p for p in term.properties if (p[0] in structure_props) == inside)
+
+    if props(old, True) != props(new, True):
+        out.append("structure")
+    if sorted(old.parents) != sorted(new.parents):
+        out.append("parents")
+    if sorted(old.relationships) != sorted(new.relationships):
+        out.append("relationships")
+    if old.name != new.name:
+        out.append("name")
+    if sorted(old.synonyms) != sorted(new.synonyms):
+        out.append("synonyms")
+    if sorted(old.disjoint_from) != sorted(new.disjoint_from):
+        out.append("disjointness")
+    if (old.obsolete, sorted(old.replaced_by), sorted(old.consider)) != \
+            (new.obsolete, sorted(new.replaced_by), sorted(new.consider)):
+        out.append("obsolescence")
+    if (sorted(old.xrefs), props(old, False), sorted(old.other)) != \
+            (sorted(new.xrefs), props(new, False), sorted(new.other)):
+        out.append("other")
+    return tuple(out)
+
+
+def structure_properties(mapping: Mapping[str, Iterable[str]]) -> frozenset[str]:
+    return frozenset(name for field in STRUCTURE_FIELDS for name in mapping.get(field, ()))
+
+
+def diff_ontologies(base: Ontology, head: Ontology,
+                    mapping: Mapping[str, Iterable[str]] | None = None) -> ChangeSet:
+    """Compare term by term. Equal digests (same stanza text) are never compared field by field."""
+    props = structure_properties(mapping or {f: (f,) for f in STRUCTURE_FIELDS})
+    old_terms, new_terms = base.terms, head.terms
+    added = tuple(t for t in new_terms if t not in old_terms)
+    removed = tuple(t for t in old_terms if t not in new_terms)
+    obsoleted: list[str] = []
+    edited: list[str] = []
+    fields: dict[str, tuple[str, ...]] = {}
+    moved: dict[str, tuple[str, str]] = {}
+    for tid, new in new_terms.items():
+        old = old_terms.get(tid)
+        if old is None:
+            continue
+        if base.path_of[tid] != head.path_of[tid]:
+            moved[tid] = (base.path_of[tid], head.path_of[tid])
+        if old.digest == new.digest:
+            continue
+        what = changed_fields(old, new, props)
+        if not what:
+            continue  # only layout or clause order changed
+        fields[tid] = what
+        if new.obsolete and not old.obsolete:
+            obsoleted.append(tid)
+        else:
+            edited.append(tid)
+    return ChangeSet(added, removed, tuple(obsoleted), tuple(edited), fields, moved)

@@ -1,0 +1,60 @@
+"""Build a `Snapshot` from file bytes: OBO (fastobo) or OBO Graphs JSON; full or incremental."""
+from __future__ import annotations
+
+from parentage import _obo
+from parentage.errors import ParentageError
+from parentage.snapshot import Snapshot
+
+# Counts full and incremental parser runs; tests use it to show the store spares a parse.
+PARSE_CALLS = {"full": 0, "incremental": 0}
+
+
+def decode(data: bytes, path: str) -> str:
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise ParentageError(f"{path}: not UTF-8 text (byte {exc.start}); OBO files must be "
+                             "UTF-8") from None
+
+
+def parse_ontology_text(text: str, path: str, blob: str | None = None,
+                        base: Snapshot | None = None) -> Snapshot:
+    """Parse `text`. With `base`, reuse every term whose stanza text is unchanged."""
+    if path.endswith(".json"):
+        from parentage._obojson import parse_json
+
+        PARSE_CALLS["full"] += 1
+        return Snapshot(path, blob, parse_json(text, path))
+    header, stanzas = _obo.split(text)
+    if base is None:
+        PARSE_CALLS["full"] += 1
+        terms = _obo.parse_stanzas(stanzas, path)
+        return Snapshot(path, blob, terms, _obo.header_pairs(header, path))
+    PARSE_CALLS["incremental"] += 1
+    known = {t.digest: t for t in base.terms.values()}
+    fresh = [s for s in stanzas if s.kind == "Term" and s.digest not in known]
+    parsed = iter(_obo.parse_stanzas(fresh, path))
+    terms = []
+    for stanza in stanzas:
+        if stanza.kind != "Term":
+            continue
+        old = known.get(stanza.digest)
+        if old is not None:
+            terms.append(old._replace(line=stanza.line, end_line=stanza.end_line))
+        else:
+            terms.append(next(parsed))
+    header_pairs = base.header if _header_unchanged(base, header) else _obo.header_pairs(header, path)
+    return Snapshot(path, blob, terms, header_pairs)
+
+
+def _header_unchanged(base: Snapshot, header: str) -> bool:
+    # Header clauses are few; comparing their raw tags/values against a cheap line split
+    # avoids a parse in the common case.
+    pairs = []
+    for line in header.splitlines():
+        stripped = line.strip()
+        if not stripped or stripped.startswith("!"):
+            continue
+        tag, _, value = stripped.partition(":")
+        pairs.append((tag.strip(), value.strip()))
+    return tuple(pairs) == tuple((t, v.strip()) for t, v in base.header)

@@ -1,0 +1,195 @@
+"""Bytes and blob shas of files at a revision: a commit, the index, the work tree, or nothing.
+
+The one module that talks to git (through gitpython). The index is read with `git ls-files`
+so `GIT_INDEX_FILE` (set by git during `git commit -a` and by hooks) is honoured.
+"""
+from __future__ import annotations
+
+import hashlib
+import os
+import re
+from functools import lru_cache
+from typing import NamedTuple
+
+from parentage.errors import ParentageError
+
+EMPTY = "empty"
+INDEX = "index"
+WORKTREE = "worktree"
+
+
+class Side(NamedTuple):
+    """One end of a comparison. `kind` is "commit", INDEX, WORKTREE or EMPTY."""
+
+    kind: str
+    commit: str | None = None  # full sha for a commit side
+    label: str = ""  # what the user wrote, or a short description
+
+    @property
+    def name(self) -> str:
+        if self.kind == "commit":
+            return self.label or (self.commit or "")[:12]
+        return self.label or self.kind
+
+
+class FileVersion(NamedTuple):
+    path: str
+    blob: str | None  # git blob sha; None when the file is absent at that side
+    data: bytes | None
+
+
+def blob_sha(data: bytes) -> str:
+    """The sha git gives these bytes as a blob (`git hash-object`)."""
+    return hashlib.sha1(b"blob %d\0" % len(data) + data).hexdigest()
+
+
+@lru_cache(maxsize=256)
+def _glob_regex(pattern: str) -> re.Pattern[str]:
+    out = []
+    i = 0
+    while i < len(pattern):
+        if pattern.startswith("**/", i):
+            out.append("(?:.*/)?")
+            i += 3
+        elif pattern.startswith("**", i):
+            out.append(".*")
+            i += 2
+        elif pattern[i] == "*":
+            out.append("[^/]*")
+            i += 1
+        elif pattern[i] == "?":
+            out.append("[^/]")
+            i += 1
+        elif pattern[i] == "[":
+            close = pattern.find("]", i + 1)
+            body = pattern[i + 1:close].replace("\\", "\\\\")
+            if body.startswith("!"):
+                body = "^" + body[1:]
+            out.append(f"[{body}]")
+            i = close + 1
+        else:
+            out.append(re.escape(pattern[i]))
+            i += 1
+    return re.compile("".join(out) + r"\Z")
+
+
+def match_glob(pattern: str, path: str) -> bool:
+    """Glob match on repository paths: `*` stays within a folder, `**/` spans folders."""
+    return bool(_glob_regex(pattern).match(path))
+
+
+class Repository:
+    def __init__(self, start: str = ".") -> None:
+        import git  # gitpython
+
+        self._git = git
+        try:
+            self.repo = git.Repo(start, search_parent_directories=True)
+        except (git.InvalidGitRepositoryError, git.NoSuchPathError):
+            raise ParentageError(f"{os.path.abspath(start)}: not inside a git repository; run "
+                                 "parentage from the ontology's repository") from None
+        except git.GitCommandNotFound:
+            raise ParentageError("git failed: is it installed and on PATH?") from None
+        if self.repo.bare:
+            raise ParentageError(f"{self.repo.git_dir}: a bare repository has no work tree; "
+                                 "run parentage in a checkout")
+        self.root = str(self.repo.working_tree_dir)
+        self.git_dir = str(self.repo.git_dir)
+
+    # -- resolving ---------------------------------------------------------------------------
+    def _is_shallow(self) -> bool:
+        return os.path.exists(os.path.join(self.git_dir, "shallow"))
+
+    def has_head(self) -> bool:
+        try:
+            self.repo.head.commit
+        except ValueError:
+            return False
+        return True
+
+    def commit(self, rev: str) -> Side:
+        try:
+            sha = self.repo.git.rev_parse("--verify", "--quiet", "--end-of-options", rev + "^{commit}")
+        except self._git.GitCommandError:
+            sha = ""
+        if not sha:
+            if rev == "HEAD" and not self.has_head():
+                return Side(EMPTY, None, "empty (no commits yet)")
+            hint = ("; this is a shallow clone: fetch more history (git fetch --unshallow, "
+                    "or fetch-depth: 0 in actions/checkout)") if self._is_shallow() else ""
+            raise ParentageError(f"unknown revision {rev!r}: not a commit in this repository{hint}")
+        return Side("commit", sha.strip(), rev)
+
+    def merge_base(self, a: Side, b: Side) -> Side:
+        if a.commit is None or b.commit is None:
+            return a
+        try:
+            base = self.repo.git.merge_base(a.commit, b.commit)
+        except self._git.GitCommandError:
+            hint = (" this is a shallow clone: fetch more history (git fetch --unshallow, or "
+                    "fetch-depth: 0 in actions/checkout)") if self._is_shallow() else \
+                " the two revisions share no history."
+            raise ParentageError(f"no merge base for {a.name}...{b.name}:{hint}") from None
+        return Side("commit", base.strip(), f"merge-base({a.name}, {b.name})")
+
+    def resolve(self, spec: str | None, staged: bool = False, worktree: bool = False) -> tuple[Side, Side]:
+        """(base, head) for `A..B`, `A...B`, a single revision (rev..work tree), --staged, --worktree."""
+        chosen = sum(1 for x in (spec, staged or None, worktree or None) if x)
+        if chosen > 1:
+            raise ParentageError("give one of a range (A..B or A...B), --staged or --worktree")
+        if staged:
+            return self.commit("HEAD"), Side(INDEX, None, "index")
+        if worktree or not spec:
+            return self.commit("HEAD"), Side(WORKTREE, None, "work tree")
+        if "..." in spec:
+            left, right = spec.split("...", 1)
+            a, b = self.commit(left or "HEAD"), self.commit(right or "HEAD")
+            return self.merge_base(a, b), b
+        if ".." in spec:
+            left, right = spec.split("..", 1)
+            return self.commit(left or "HEAD"), self.commit(right or "HEAD")
+        return self.commit(spec), Side(WORKTREE, None, "work tree")
+
+    # -- listing and reading -------------------------------------------------------------------
+    def list_files(self, side: Side) -> list[str]:
+        """Every file git tracks at `side` (repository-relative, '/'-separated)."""
+        if side.kind == EMPTY:
+            return []
+        if side.kind == "commit":
+            out = self.repo.git.ls_tree("-r", "--name-only", "-z", side.commit)
+        else:
+            out = self.repo.git.ls_files("-z")
+        paths = [p for p in out.split("\0") if p]
+        if side.kind == WORKTREE:
+            paths = [p for p in paths if os.path.isfile(os.path.join(self.root, p))]
+        return paths
+
+    def matching(self, side: Side, patterns: tuple[str, ...]) -> list[str]:
+        return [p for p in self.list_files(side) if any(match_glob(g, p) for g in patterns)]
+
+    def read(self, side: Side, path: str) -> FileVersion:
+        if side.kind == EMPTY:
+            return FileVersion(path, None, None)
+        if side.kind == WORKTREE:
+            full = os.path.join(self.root, path)
+            if not os.path.isfile(full):
+                return FileVersion(path, None, None)
+            with open(full, "rb") as handle:
+                data = handle.read()
+            return FileVersion(path, blob_sha(data), data)
+        if side.kind == INDEX:
+            line = self.repo.git.ls_files("-s", "--", path)
+            if not line.strip():
+                return FileVersion(path, None, None)
+            sha = line.split()[1]
+        else:
+            try:
+                sha = self.repo.git.rev_parse("--verify", "--quiet", f"{side.commit}:{path}")
+            except self._git.GitCommandError:
+                return FileVersion(path, None, None)
+            if not sha:
+                return FileVersion(path, None, None)
+        return FileVersion(path, sha.strip(), self.blob_bytes(sha.strip()))
+
+    def blob_bytes(self, sha: str) -> bytes:
+        return bytes(self.repo.odb.stream(bytes.fromhex(sha)).read())

@@ -1,0 +1,98 @@
+"""One repository, its config and its store: ontologies and rule files at any side, cached."""
+from __future__ import annotations
+
+from collections.abc import Iterable
+
+from parentage.config import Config, load_config
+from parentage.errors import ParentageError
+from parentage.parse import decode, parse_ontology_text
+from parentage.revisions import EMPTY, Repository, Side
+from parentage.snapshot import Ontology, Snapshot
+from parentage.store import Store, default_store_path
+
+ONTOLOGY_SUFFIXES = (".obo", ".json")
+
+
+class Workspace:
+    def __init__(self, start: str = ".", config_path: str | None = None,
+                 store: Store | None = None) -> None:
+        self.repo = Repository(start)
+        self.root = self.repo.root
+        self.config: Config = load_config(config_path, self.root)
+        self.store = store or Store(default_store_path(self.repo.git_dir, self.config.cache, self.root))
+        self._snapshots: dict[tuple[str, str], Snapshot] = {}
+
+    def close(self) -> None:
+        self.store.close()
+
+    # -- which files -------------------------------------------------------------------------
+    def ontology_paths(self, side: Side, only: Iterable[str] = ()) -> list[str]:
+        """Configured ontology files at `side` (default: every tracked *.obo file)."""
+        chosen = [p.replace("\\", "/").removeprefix("./") for p in only]
+        if chosen:
+            return chosen
+        if self.config.ontologies:
+            return self.repo.matching(side, self.config.ontologies)
+        return [p for p in self.repo.list_files(side) if p.endswith(".obo")]
+
+    def rule_files(self, side: Side) -> list[tuple[str, str]]:
+        """(path, text) of every rule file the config names, as they are at `side`."""
+        out = []
+        for path in self.repo.matching(side, self.config.rules):
+            version = self.repo.read(side, path)
+            if version.data is not None:
+                out.append((path, decode(version.data, path)))
+        return out
+
+    # -- snapshots ---------------------------------------------------------------------------
+    def snapshot(self, side: Side, path: str, base: Snapshot | None = None) -> Snapshot | None:
+        """The snapshot of `path` at `side`, or None where the file is absent."""
+        version = self.repo.read(side, path)
+        if version.blob is None or version.data is None:
+            return None
+        key = (version.blob, path)
+        cached = self._snapshots.get(key)
+        if cached is not None:
+            return cached
+        stored = self.store.get("snapshot", f"{version.blob}:{path}")
+        if stored is not None:
+            snap = Snapshot.from_json(stored)
+        else:
+            text = decode(version.data, path)
+            snap = parse_ontology_text(text, path, version.blob, base)
+            self.store.put("snapshot", f"{version.blob}:{path}", snap.to_json())
+        self._snapshots[key] = snap
+        return snap
+
+    def ontology(self, side: Side, paths: Iterable[str] | None = None,
+                 base: Ontology | None = None) -> Ontology:
+        """Every ontology file at `side`, merged; with `base`, unchanged stanzas are reused."""
+        if side.kind == EMPTY:
+            return Ontology(side.name, ())
+        chosen = list(paths) if paths is not None else self.ontology_paths(side)
+        snaps = []
+        for path in chosen:
+            if not path.endswith(ONTOLOGY_SUFFIXES):
+                continue
+            earlier = None
+            if base is not None:
+                same = [s for s in base.snapshots if s.path == path]
+                # A renamed file (one ontology each side) still reuses the old stanzas.
+                earlier = same[0] if same else (base.snapshots[0] if len(base.snapshots) == 1 else None)
+            snap = self.snapshot(side, path, earlier)
+            if snap is not None:
+                snaps.append(snap)
+        return Ontology(side.name, snaps)
+
+    def pair(self, base_side: Side, head_side: Side,
+             only: Iterable[str] = ()) -> tuple[Ontology, Ontology]:
+        only = list(only)
+        for path in only:
+            if self.repo.read(base_side, path).blob is None and self.repo.read(head_side, path).blob is None:
+                raise ParentageError(f"{path}: no such file at {base_side.name} or {head_side.name}")
+        base = self.ontology(base_side, self.ontology_paths(base_side, only) if base_side.kind != EMPTY else [])
+        head = self.ontology(head_side, self.ontology_paths(head_side, only), base)
+        if not base.snapshots and not head.snapshots and base_side.kind != EMPTY:
+            raise ParentageError("no ontology files found: add an *.obo file or list them under "
+                                 "'ontologies' in .parentage.yaml")
+        return base, head
