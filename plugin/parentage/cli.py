@@ -61,7 +61,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     except BrokenPipeError:
         return 0
-    except Exception as exc:  # the last resort: no traceback on the terminal, a log instead
+    except Exception as exc:  # noqa: BLE001 - the last resort: no traceback on the terminal, a log instead
         fd, log = tempfile.mkstemp(prefix="parentage-error-", suffix=".log")
         with os.fdopen(fd, "w") as handle:
             handle.write(f"parentage {__version__}\nargs: {args!r}\n\n")

@@ -175,9 +175,7 @@ def parse_config(text: str, path: str) -> Config:
         return config
     values: dict[str, Any] = {}
     for name, knode, vnode in _mapping(path, root, "(top level)"):
-        if name == "ontologies":
-            values[name] = _expect_list(path, vnode, name, _expect_glob)
-        elif name == "rules":
+        if name in ("ontologies", "rules"):
             values[name] = _expect_list(path, vnode, name, _expect_glob)
         elif name == "fail_on":
             values[name] = _expect_list(path, vnode, name, _expect_kind)

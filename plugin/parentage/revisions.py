@@ -101,11 +101,7 @@ class Repository:
         return os.path.exists(os.path.join(self.git_dir, "shallow"))
 
     def has_head(self) -> bool:
-        try:
-            self.repo.head.commit
-        except ValueError:
-            return False
-        return True
+        return self.repo.head.is_valid()
 
     def commit(self, rev: str) -> Side:
         try:

@@ -32,9 +32,10 @@ def as_json(base: Ontology, head: Ontology, changes: ChangeSet) -> str:
 
 
 def as_text(base: Ontology, head: Ontology, changes: ChangeSet) -> str:
-    lines = [f"{base.revision} .. {head.revision}: {len(changes.added)} added, "
-             f"{len(changes.removed)} removed, {len(changes.obsoleted)} obsoleted, "
-             f"{len(changes.edited)} edited"]
+    summary = (f"{base.revision} .. {head.revision}: {len(changes.added)} added, "
+               f"{len(changes.removed)} removed, {len(changes.obsoleted)} obsoleted, "
+               f"{len(changes.edited)} edited")
+    lines = [summary]
     rows: list[tuple[str, str, Ontology, str]] = []
     rows += [("added", t, head, "") for t in changes.added]
     rows += [("removed", t, base, "") for t in changes.removed]
