@@ -189,3 +189,38 @@ class Repository:
 
     def blob_bytes(self, sha: str) -> bytes:
         return bytes(self.repo.odb.stream(bytes.fromhex(sha)).read())
+
+
+def build_repository(dest: str, commits: list[tuple[str, str, dict[str, bytes]]]) -> str:
+    """Create a git repository at `dest` from (branch, message, files) steps, in order.
+
+    Each step checks out `branch` (created from the current commit when new), writes the
+    files (a value of b"" deletes the file), and commits. Used by `parentage demo` and tests.
+    """
+    import git
+
+    if os.path.exists(dest) and os.listdir(dest):
+        raise ParentageError(f"{dest}: folder exists and is not empty; choose another")
+    repo = git.Repo.init(dest, initial_branch=commits[0][0] if commits else "main")
+    with repo.config_writer() as cfg:
+        cfg.set_value("user", "name", "parentage demo")
+        cfg.set_value("user", "email", "demo@example.invalid")
+        cfg.set_value("commit", "gpgsign", "false")
+    for branch, message, files in commits:
+        if repo.head.is_valid() and repo.active_branch.name != branch:
+            if branch in repo.heads:
+                repo.heads[branch].checkout()
+            else:
+                repo.create_head(branch).checkout()
+        for path, data in files.items():
+            full = os.path.join(dest, path)
+            if data == b"":
+                if os.path.exists(full):
+                    repo.index.remove([path], working_tree=True)
+                continue
+            os.makedirs(os.path.dirname(full), exist_ok=True)
+            with open(full, "wb") as handle:
+                handle.write(data)
+            repo.git.add("--", path)
+        repo.git.commit("-q", "--allow-empty", "-m", message)
+    return str(repo.working_tree_dir)
