@@ -1,7 +1,7 @@
 """`ChangeSet`: what a change did to the terms, found by comparing stanza digests first."""
 from __future__ import annotations
 
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from typing import Any, NamedTuple
 
 from parentage.snapshot import STRUCTURE_FIELDS, Ontology, Term
@@ -87,3 +87,50 @@ def diff_ontologies(base: Ontology, head: Ontology,
         else:
             edited.append(tid)
     return ChangeSet(added, removed, tuple(obsoleted), tuple(edited), fields, moved)
+
+
+CLASS_FIELDS = frozenset({"parents", "relationships", "disjointness", "obsolescence"})
+
+
+def affected_terms(base: Ontology, head: Ontology, changes: ChangeSet,
+                   rule_changed: Iterable[str], is_structured: Callable[[Term], bool]) -> tuple[str, ...]:
+    """The live head terms a review must look at, in a stable order.
+
+    - every added or edited term;
+    - every descendant of a class whose parents, relationships, disjointness or obsolescence
+      changed, at either end (moving a class moves its members), and of the classes a changed
+      disjoint_from axiom names;
+    - every member of a class whose rule changed;
+    - every term that points at a removed or obsoleted term.
+    Only structured terms are kept, except that edited, added and pointing terms are kept even
+    without a structure (hierarchy checks need no structure).
+    """
+    wanted: dict[str, None] = {}
+
+    def add(tid: str, need_structure: bool) -> None:
+        term = head.terms.get(tid)
+        if term is None or term.obsolete:
+            return
+        if need_structure and not is_structured(term):
+            return
+        wanted[tid] = None
+
+    for tid in changes.added + changes.edited:
+        add(tid, False)
+    classes: set[str] = set(rule_changed)
+    for tid, what in changes.fields.items():
+        if CLASS_FIELDS & set(what):
+            classes.add(tid)
+            for side in (base, head):
+                term = side.terms.get(tid)
+                if term is not None:
+                    classes.update(term.disjoint_from)
+    for cls in sorted(classes):
+        for desc in sorted(head.descendants(cls) | base.descendants(cls)):
+            add(desc, True)
+    gone = set(changes.removed) | set(changes.obsoleted)
+    if gone:
+        for term in head.terms.values():
+            if any(target in gone for _, target in term.references()):
+                add(term.id, False)
+    return tuple(wanted)

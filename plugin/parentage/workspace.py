@@ -96,3 +96,27 @@ class Workspace:
             raise ParentageError("no ontology files found: add an *.obo file or list them under "
                                  "'ontologies' in .parentage.yaml")
         return base, head
+
+    def is_ontology_path(self, side: Side, path: str) -> bool:
+        """True for *.obo files, and for *.json files that are configured or OBO Graphs JSON."""
+        path = path.replace("\\", "/").removeprefix("./")
+        if path.endswith(".obo"):
+            return True
+        if not path.endswith(".json"):
+            return False
+        if self.config.ontologies and path in self.repo.matching(side, self.config.ontologies):
+            return True
+        data = self.repo.read(side, path).data or b""
+        return b'"graphs"' in data[:4096]
+
+    def override_fail_on(self, kinds: str) -> None:
+        """Replace the config's fail_on with a comma-separated list (the --fail-on option)."""
+        from dataclasses import replace
+
+        from parentage.findings import KINDS
+
+        chosen = tuple(k.strip() for k in kinds.split(",") if k.strip())
+        unknown = [k for k in chosen if k not in KINDS]
+        if unknown:
+            raise ParentageError(f"--fail-on: unknown finding kind {unknown[0]!r} (known: {', '.join(KINDS)})")
+        self.config = replace(self.config, fail_on=chosen)

@@ -1,0 +1,160 @@
+"""The review engine: both tiers, at both ends, on exactly what a change touched.
+
+revisions -> snapshots -> change set -> affected terms -> tiers at base and head -> findings
+(new / persisting / resolved). Nothing here prints; the `review` command renders the record.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterable, Mapping
+from typing import Any, NamedTuple
+
+from parentage.arbitration import arbitrate, disjoint_findings
+from parentage.changes import affected_terms, diff_ontologies
+from parentage.config import Config
+from parentage.findings import Finding, Review, compare, with_severity
+from parentage.revisions import Side
+from parentage.snapshot import Ontology, Term, read_structure
+from parentage.workspace import Workspace
+
+
+class SideResult(NamedTuple):
+    findings: list[Finding]
+    rule_verdicts: Mapping[str, list[Any]]
+    model_verdicts: Mapping[str, list[Any]]
+
+
+def smiles_of(term: Term, config: Config) -> str | None:
+    return read_structure(term, config.structure).smiles
+
+
+def is_structured(config: Config):  # type: ignore[no-untyped-def]
+    def check(term: Term) -> bool:
+        s = read_structure(term, config.structure)
+        return bool(s.smiles or s.inchi)
+    return check
+
+
+def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
+    """Standard InChIKey -> live term ids over the whole ontology, cached per file versions."""
+    from parentage.tiers.structure import inchikey_index, structure_facts
+
+    stamp = json.dumps([[s.path, s.blob] for s in ontology.snapshots] + [sorted(
+        (k, list(v)) for k, v in ws.config.structure.items())])
+    key = hashlib.sha256(stamp.encode()).hexdigest()
+    cached = ws.store.get("inchikey-index", key)
+    if cached is not None:
+        return {k: tuple(v) for k, v in cached.items()}
+    facts = structure_facts(ontology, ontology.terms, ws.config, ws.store)
+    index = inchikey_index(ontology, ws.config, facts)
+    ws.store.put("inchikey-index", key, {k: list(v) for k, v in index.items()})
+    return index
+
+
+def _without(index: Mapping[str, tuple[str, ...]], drop: set[str]) -> dict[str, tuple[str, ...]]:
+    out = {}
+    for key, ids in index.items():
+        kept = tuple(i for i in ids if i not in drop)
+        if kept:
+            out[key] = kept
+    return out
+
+
+def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
+                   others: Mapping[str, tuple[str, ...]]) -> list[Finding]:
+    from parentage.tiers.structure import hierarchy_findings, structure_facts, structure_findings
+
+    facts = structure_facts(ontology, term_ids, ws.config, ws.store)
+    present = [t for t in term_ids if t in ontology.terms]
+    out = structure_findings(ontology, present, ws.config, facts, others)
+    out += hierarchy_findings(ontology, present)
+    out += disjoint_findings(ontology, present)
+    return out
+
+
+def _rules(ws: Workspace, side: Side, ontology: Ontology) -> tuple[Any, list[str]]:
+    from parentage.tiers.rules import load_rules
+
+    return load_rules(ws.rule_files(side), ontology)
+
+
+def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[str] = (),
+               use_model: bool = True) -> Review:
+    config = ws.config
+    base, head = ws.pair(base_side, head_side, files)
+    changes = diff_ontologies(base, head, config.structure)
+    notes: list[str] = []
+    base_rules, base_warn = _rules(ws, base_side, base)
+    head_rules, head_warn = _rules(ws, head_side, head)
+    notes += list(head_warn)
+    del base_warn  # the base's rule warnings were the base's business
+    rule_changed = {c for c in set(base_rules.classes()) | set(head_rules.classes())
+                    if base_rules.digest(c) != head_rules.digest(c)}
+    affected = list(affected_terms(base, head, changes, rule_changed, is_structured(config)))
+    changed = set(changes.touched) | set(changes.removed)
+
+    # Structure and hierarchy at both ends; duplicates against the rest of the ontology.
+    base_index = key_index(ws, base) if base.snapshots else {}
+    others = _without(base_index, changed | set(affected))
+    base_ids = [t for t in affected if t in base.terms and not base.terms[t].obsolete]
+    head_findings = structure_side(ws, head, affected, others)
+    base_findings = structure_side(ws, base, base_ids, others)
+
+    # Rule and model tiers on the structured affected terms, with one model for both ends.
+    structured = is_structured(config)
+    model = None
+    if use_model:
+        from parentage.tiers.model import load_or_train
+
+        exclude = set(changes.edited) | set(changes.obsoleted) | set(changes.removed)
+        model = load_or_train(base if base.snapshots else head, config, ws.store, exclude,
+                              base_side.name if base.snapshots else head_side.name)
+        if model is None:
+            notes.append("model tier: too few members to learn any class "
+                         f"(model.min_members = {config.model.min_members}); rule tier only")
+    for side_onto, rules, ids, sink in ((base, base_rules, base_ids, base_findings),
+                                        (head, head_rules, affected, head_findings)):
+        live = [t for t in ids if t in side_onto.terms and structured(side_onto.terms[t])]
+        smiles = {t: s for t in live if (s := smiles_of(side_onto.terms[t], config))}
+        unreadable = {f.term for f in sink if f.kind == "structure-unreadable"}
+        smiles = {t: s for t, s in smiles.items() if t not in unreadable}
+        rule_v = rules.verdicts(side_onto, list(smiles), smiles, config.limits)
+        model_v = model.predict(smiles) if model is not None else {}
+        f1 = model.class_f1 if model is not None else {}
+        for tid in smiles:
+            sink.extend(arbitrate(side_onto, tid, rule_v.get(tid, []), model_v.get(tid, []),
+                                  f1, config.model.min_f1, config.max_suggestions))
+    findings = compare(_dedupe(base_findings), _dedupe(head_findings))
+    findings = with_severity(findings, config.severity)
+    findings.sort(key=_order)
+    names = {}
+    for f in findings:
+        for tid in (f.term, *f.classes):
+            term = head.terms.get(tid) or base.terms.get(tid)
+            if term is not None and term.name:
+                names[tid] = term.name
+    return Review(
+        base=base_side.name, head=head_side.name,
+        ontologies=tuple(sorted(set(base.paths) | set(head.paths))),
+        changes=changes.to_json(), edited_fields=dict(changes.fields),
+        affected=tuple(affected), findings=tuple(findings), names=names,
+        fail_on=config.fail_on,
+        model_revision=getattr(model, "revision", None), notes=tuple(notes))
+
+
+def _dedupe(findings: list[Finding]) -> list[Finding]:
+    seen: set[Any] = set()
+    out = []
+    for f in findings:
+        if f.identity not in seen:
+            seen.add(f.identity)
+            out.append(f)
+    return out
+
+
+_STATUS_ORDER = {"new": 0, "persisting": 1, "resolved": 2}
+
+
+def _order(f: Finding) -> tuple[int, str, int, str]:
+    return (_STATUS_ORDER.get(f.status, 3), f.path, f.line, f.kind)
