@@ -46,7 +46,11 @@ def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
     cached = ws.store.get("inchikey-index", key)
     if cached is not None:
         return {k: tuple(v) for k, v in cached.items()}
-    facts = structure_facts(ontology, ontology.terms, ws.config, ws.store)
+    # Written InChIKeys stand in for unchanged terms (a wrong one is that term's own
+    # annotation-mismatch); only terms without one are read, so a cold index stays cheap.
+    unkeyed = [t.id for t in ontology.merged.live()
+               if not read_structure(t, ws.config.structure).inchikey]
+    facts = structure_facts(ontology, unkeyed, ws.config, ws.store)
     index = inchikey_index(ontology, ws.config, facts)
     ws.store.put("inchikey-index", key, {k: list(v) for k, v in index.items()})
     return index
