@@ -1,0 +1,234 @@
+"""The SQLite store: round trips, version stamps, parallel writers, location, and cache hits."""
+from __future__ import annotations
+
+import json
+import multiprocessing
+import sqlite3
+import time
+import zlib
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import pytest
+
+from parentage import parse
+from parentage.cli import main
+from parentage.store import Store, default_store_path
+
+if TYPE_CHECKING:
+    from conftest import GitRepo
+
+WORKERS = 6
+ITEMS = 40
+
+
+def test_json_values_round_trip(tmp_path: Path) -> None:
+    store = Store(str(tmp_path / "s" / "store.sqlite"))
+    value = {"name": "acétique", "mass": 60.052, "parents": ["QQX:1", "QQX:2"], "none": None,
+             "nested": {"ok": True, "n": -3}}
+    store.put("snapshot", "k1", value)
+    assert store.get("snapshot", "k1") == value
+    assert store.get("snapshot", "missing") is None
+    assert store.get("other-namespace", "k1") is None
+    store.put_many("snapshot", {"a": [1, 2], "b": "text"})
+    assert store.get_many("snapshot", ["a", "b", "c", "a"]) == {"a": [1, 2], "b": "text"}
+    store.put("snapshot", "k1", {"replaced": 1})
+    store.close()
+    reopened = Store(str(tmp_path / "s" / "store.sqlite"))
+    assert reopened.get("snapshot", "k1") == {"replaced": 1}
+    reopened.close()
+
+
+def test_bytes_round_trip(tmp_path: Path) -> None:
+    store = Store(str(tmp_path / "store.sqlite"))
+    payload = bytes(range(256)) * 50 + b"\0\0"
+    store.put_bytes("arrays", "fp", payload)
+    store.put_bytes("arrays", "empty", b"")
+    store.close()
+    again = Store(str(tmp_path / "store.sqlite"))
+    assert again.get_bytes("arrays", "fp") == payload
+    assert again.get_bytes("arrays", "empty") == b""
+    assert again.get_bytes("arrays", "none") is None
+    assert (again.hits, again.misses) == (2, 1)
+    again.close()
+
+
+def test_no_pickle_in_the_file(tmp_path: Path) -> None:
+    path = tmp_path / "store.sqlite"
+    store = Store(str(path))
+    store.put("snapshot", "k", {"a": 1})
+    store.close()
+    with sqlite3.connect(path) as conn:
+        (raw,) = conn.execute("SELECT value FROM entry").fetchone()
+    assert json.loads(zlib.decompress(raw)) == {"a": 1}
+
+
+def test_another_version_does_not_see_old_entries(tmp_path: Path) -> None:
+    path = str(tmp_path / "store.sqlite")
+    old = Store(path, version="0.0.1")
+    old.put("snapshot", "k", {"layout": "old"})
+    old.close()
+    new = Store(path, version="0.0.2")
+    assert new.get("snapshot", "k") is None
+    assert new.get_many("snapshot", ["k"]) == {}
+    new.put("snapshot", "k", {"layout": "new"})
+    new.close()
+    again = Store(path, version="0.0.1")
+    assert again.get("snapshot", "k") == {"layout": "old"}
+    again.close()
+
+
+def _worker(path: str, number: int, barrier: Any) -> None:
+    store = Store(path)
+    barrier.wait(timeout=60)  # every process opens the fresh file at the same moment
+    for i in range(ITEMS):
+        store.put("values", f"{number}:{i}", {"worker": number, "i": i})
+        store.put_bytes("blobs", f"{number}:{i}", bytes([number, i]) * 100)
+        seen = store.get_many("values", [f"{w}:{i}" for w in range(WORKERS)])
+        for key, value in seen.items():
+            w, n = key.split(":")
+            if value != {"worker": int(w), "i": int(n)}:
+                raise SystemExit(f"wrong value under {key}: {value}")
+    store.close()
+
+
+def test_parallel_writers(tmp_path: Path) -> None:
+    path = str(tmp_path / "cache" / "store.sqlite")
+    # The file exists (as after any earlier run); a fresh file is the case below.
+    first = Store(path)
+    first.put("values", "setup", True)
+    first.close()
+    ctx = multiprocessing.get_context("fork")
+    barrier = ctx.Barrier(WORKERS)
+    procs = [ctx.Process(target=_worker, args=(path, n, barrier)) for n in range(WORKERS)]
+    for proc in procs:
+        proc.start()
+    for proc in procs:
+        proc.join(timeout=120)
+    assert [p.exitcode for p in procs] == [0] * WORKERS
+    store = Store(path)
+    keys = [f"{w}:{i}" for w in range(WORKERS) for i in range(ITEMS)]
+    values = store.get_many("values", keys)
+    assert values == {k: {"worker": int(k.split(":")[0]), "i": int(k.split(":")[1])} for k in keys}
+    for key in keys:
+        w, i = (int(x) for x in key.split(":"))
+        assert store.get_bytes("blobs", key) == bytes([w, i]) * 100
+    store.close()
+    # Reference: SQLite's own consistency check of the file.
+    with sqlite3.connect(path) as conn:
+        assert conn.execute("PRAGMA integrity_check").fetchall() == [("ok",)]
+
+
+def _hold_write_lock(path: str, locked: Any, seconds: float) -> None:
+    conn = sqlite3.connect(path, isolation_level=None)
+    conn.execute("BEGIN IMMEDIATE")
+    conn.execute("CREATE TABLE IF NOT EXISTS other_tool (x)")
+    locked.set()
+    time.sleep(seconds)
+    conn.execute("COMMIT")
+    conn.close()
+
+
+@pytest.mark.xfail(reason="Store._connect switches a fresh file to WAL while another process holds a "
+                   "write lock: SQLite answers 'database is locked' at once (no busy wait) and the "
+                   "store reports the cache as unusable", strict=True)
+def test_opening_a_fresh_file_waits_for_another_writer(tmp_path: Path) -> None:
+    path = str(tmp_path / "store.sqlite")
+    ctx = multiprocessing.get_context("fork")
+    locked = ctx.Event()
+    holder = ctx.Process(target=_hold_write_lock, args=(path, locked, 1.0))
+    holder.start()
+    try:
+        assert locked.wait(timeout=30)
+        store = Store(path)
+        store.put("values", "k", 1)  # must wait for the other writer, not fail
+        assert store.get("values", "k") == 1
+        store.close()
+    finally:
+        holder.join(timeout=30)
+    assert holder.exitcode == 0
+
+
+def test_unusable_store_file_is_a_clear_error(git_repo: GitRepo,
+                                              capsys: pytest.CaptureFixture[str]) -> None:
+    git_repo.write("qqx.obo", OBO)
+    git_repo.commit()
+    store = Path(git_repo.git("rev-parse", "--absolute-git-dir").strip()) / "parentage" / "store.sqlite"
+    store.parent.mkdir(parents=True)
+    store.write_bytes(b"this is not a database" * 100)
+    assert main(["diff", "-C", str(git_repo.path), "HEAD"]) == 2
+    err = capsys.readouterr().err
+    assert len(err.splitlines()) == 1 and "store.sqlite" in err and "Traceback" not in err
+
+
+# -- location --------------------------------------------------------------------------------
+
+OBO = "format-version: 1.4\n\n[Term]\nid: QQX:0000001\nname: chemical entity\n"
+EDITED = OBO + "\n[Term]\nid: QQX:0000002\nname: acid\nis_a: QQX:0000001\n"
+
+
+@pytest.fixture
+def two_commits(git_repo: GitRepo) -> GitRepo:
+    git_repo.write("qqx.obo", OBO)
+    git_repo.commit("first")
+    git_repo.write("qqx.obo", EDITED)
+    git_repo.commit("second")
+    return git_repo
+
+
+def test_default_location_is_in_the_git_directory(two_commits: GitRepo,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["diff", "-C", str(two_commits.path), "HEAD~1..HEAD"]) == 0
+    # Reference: git's own answer for where the git directory is.
+    git_dir = Path(two_commits.git("rev-parse", "--absolute-git-dir").strip())
+    assert (git_dir / "parentage" / "store.sqlite").is_file()
+    assert default_store_path(str(git_dir), None, str(two_commits.path)) == str(
+        git_dir / "parentage" / "store.sqlite")
+
+
+def test_environment_overrides_the_location(two_commits: GitRepo, tmp_path: Path,
+                                            monkeypatch: pytest.MonkeyPatch,
+                                            capsys: pytest.CaptureFixture[str]) -> None:
+    cache = tmp_path / "ci-cache"
+    monkeypatch.setenv("PARENTAGE_CACHE", str(cache))
+    assert main(["diff", "-C", str(two_commits.path), "HEAD~1..HEAD"]) == 0
+    assert (cache / "store.sqlite").is_file()
+    assert not (two_commits.path / ".git" / "parentage").exists()
+    # The environment wins over the config's `cache` too.
+    assert default_store_path("/g", "elsewhere", "/r") == str(cache / "store.sqlite")
+
+
+def test_config_cache_key_sets_the_location(two_commits: GitRepo,
+                                            capsys: pytest.CaptureFixture[str]) -> None:
+    two_commits.write(".parentage.yaml", "cache: .cache/parentage\n")
+    assert main(["diff", "-C", str(two_commits.path), "HEAD~1..HEAD"]) == 0
+    assert (two_commits.path / ".cache" / "parentage" / "store.sqlite").is_file()
+    assert not (two_commits.path / ".git" / "parentage").exists()
+
+
+# -- cache hits ------------------------------------------------------------------------------
+
+def _parse_count() -> int:
+    return parse.PARSE_CALLS["full"] + parse.PARSE_CALLS["incremental"]
+
+
+def _reset() -> None:
+    for key in parse.PARSE_CALLS:
+        parse.PARSE_CALLS[key] = 0
+
+
+@pytest.mark.parametrize("selector", [["HEAD~1..HEAD"], ["HEAD~1"], ["--staged"]],
+                         ids=["range", "work-tree", "index"])
+def test_second_diff_does_not_parse_again(two_commits: GitRepo, selector: list[str],
+                                          capsys: pytest.CaptureFixture[str]) -> None:
+    two_commits.write("qqx.obo", EDITED + "\n[Term]\nid: QQX:0000003\nname: base\n")
+    two_commits.git("add", "qqx.obo")
+    args = ["diff", "-C", str(two_commits.path), "--format", "json", *selector]
+    _reset()
+    assert main(args) == 0
+    first = capsys.readouterr().out
+    assert _parse_count() == 2  # base and head, each parsed once
+    _reset()
+    assert main(args) == 0
+    assert _parse_count() == 0
+    assert capsys.readouterr().out == first
