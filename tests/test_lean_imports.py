@@ -111,3 +111,36 @@ def test_check_with_a_structure_edit_does_use_rdkit(git_repo: GitRepo, tmp_path:
     _code, modules = run(git_repo, tmp_path, "check", "HEAD~1..HEAD")
     assert "rdkit" in modules
     assert "sklearn" not in modules
+
+
+PROGRESS = """
+import json, sys
+from parentage.progress import progress
+items = list(progress(range(5000), desc="work", enabled={enabled}))
+print(json.dumps({{"same": items == list(range(5000)), "tqdm": "tqdm" in sys.modules}}))
+"""
+
+
+@pytest.mark.parametrize(("enabled", "bar"), [("None", False), ("True", True), ("False", False)],
+                         ids=["piped stderr", "forced on", "forced off"])
+def test_progress_bar_only_when_wanted(enabled: str, bar: bool) -> None:
+    env = {k: v for k, v in os.environ.items() if k not in ("CI", "PARENTAGE_NO_PROGRESS")}
+    done = subprocess.run([sys.executable, "-c", PROGRESS.format(enabled=enabled)], env=env,
+                          capture_output=True, text=True, check=True)
+    result = json.loads(done.stdout)
+    assert result == {"same": True, "tqdm": bar}
+    assert ("work" in done.stderr) is bar  # a bar draws on stderr, and only then
+
+
+def test_progress_bar_on_a_terminal() -> None:
+    import pty
+
+    env = {k: v for k, v in os.environ.items() if k not in ("CI", "PARENTAGE_NO_PROGRESS")}
+    leader, follower = pty.openpty()
+    try:
+        done = subprocess.run([sys.executable, "-c", PROGRESS.format(enabled="None")], env=env,
+                              stdout=subprocess.PIPE, stderr=follower, text=True, check=True)
+    finally:
+        os.close(follower)
+        os.close(leader)
+    assert json.loads(done.stdout) == {"same": True, "tqdm": True}
