@@ -135,9 +135,6 @@ def test_malformed_obo_names_the_original_line(git_repo: GitRepo, build: str,
         f"parentage: qqx.obo:{BAD_LINE}: malformed OBO: expected EOI, Comment, or TermClause"]
 
 
-@pytest.mark.xfail(reason="fastobo panics on a comment-only line inside a stanza; the "
-                   "PanicException is a BaseException, which neither the OBO adapter nor the "
-                   "CLI's last-resort handler catches", strict=True)
 def test_comment_line_inside_a_stanza_does_not_crash(git_repo: GitRepo) -> None:
     git_repo.write("qqx.obo", GOOD + "! a curator's note on its own line\n")
     git_repo.git("add", "qqx.obo")

@@ -89,9 +89,7 @@ ERRORS = [
                  id="unknown-severity"),
     pytest.param("structure: [smiles]\n", "structure", "structure", id="section-not-a-mapping"),
     pytest.param("model:\n  min_members: -1\n", "model.min_members", "min_members",
-                 id="negative-number",
-                 marks=pytest.mark.xfail(reason="the 'must not be negative' error names no line",
-                                         strict=True)),
+                 id="negative-number"),
 ]
 
 

@@ -114,13 +114,9 @@ EDITS = [
     pytest.param("name: acetic acid\ndef", "name: ethanoic acid\ncomment: renamed\ndef", "QQX:0000003",
                  ("name", "other"), id="two-fields"),
     pytest.param('"ethanoic acid" EXACT []', '"ethanoic acid" EXACT [QQX:0000099]', "QQX:0000003",
-                 ("synonyms",), id="synonym-xrefs",
-                 marks=pytest.mark.xfail(reason="a synonym's xrefs are dropped by the OBO adapter, "
-                                         "so the edit is not reported", strict=True)),
+                 ("synonyms",), id="synonym-xrefs"),
     pytest.param('carboxylic acid." []', 'carboxylic acid." [QQX:0000099]', "QQX:0000003",
-                 ("other",), id="def-xrefs",
-                 marks=pytest.mark.xfail(reason="a definition's xrefs are dropped by the OBO adapter, "
-                                         "so the edit is not reported", strict=True)),
+                 ("other",), id="def-xrefs"),
 ]
 
 

@@ -88,10 +88,6 @@ def test_diff_imports_nothing_heavy(repo: GitRepo, tmp_path: Path, warm: bool) -
     assert "fastobo" in modules or warm  # the test sees real imports: a cold store parses
 
 
-@pytest.mark.xfail(strict=True, raises=AssertionError,
-                   reason="tiers/structure.py imports parentage.chem.molecules (so rdkit) at module "
-                   "level, and commands/check.py analyses the structure of every affected term, "
-                   "also of terms whose structure fields did not change")
 @pytest.mark.parametrize("warm", [False, True], ids=["cold store", "warm store"])
 def test_check_without_structure_edits_imports_no_rdkit(repo: GitRepo, tmp_path: Path,
                                                         warm: bool) -> None:

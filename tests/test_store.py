@@ -129,9 +129,6 @@ def _hold_write_lock(path: str, locked: Any, seconds: float) -> None:
     conn.close()
 
 
-@pytest.mark.xfail(reason="Store._connect switches a fresh file to WAL while another process holds a "
-                   "write lock: SQLite answers 'database is locked' at once (no busy wait) and the "
-                   "store reports the cache as unusable", strict=True)
 def test_opening_a_fresh_file_waits_for_another_writer(tmp_path: Path) -> None:
     path = str(tmp_path / "store.sqlite")
     ctx = multiprocessing.get_context("fork")

@@ -9,8 +9,8 @@ from parentage.findings import Finding
 from parentage.parse import parse_ontology_text
 from parentage.snapshot import Ontology
 from parentage.store import Store
+from parentage.tiers.hierarchy import hierarchy_findings
 from parentage.tiers.structure import (
-    hierarchy_findings,
     inchikey_index,
     structure_facts,
     structure_findings,

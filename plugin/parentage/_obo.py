@@ -25,17 +25,34 @@ class Stanza(NamedTuple):
     id: str | None
     line: int  # 1-based first line
     end_line: int  # last non-blank line
-    text: str
-    digest: str
+    text: str  # what the parser sees (comment-only lines removed)
+    digest: str  # of the raw stanza text
+    lines: tuple[int, ...] = ()  # file line of each line of `text`
 
 
 class OboSyntaxError(ParentageError):
     pass
 
 
-def split(text: str) -> tuple[str, list[Stanza]]:
-    """The header text and the stanzas of an OBO document, with spans and digests."""
-    lines = text.splitlines()
+KNOWN_STANZAS = ("Term", "Typedef", "Instance")
+
+
+def _lines(text: str) -> list[str]:
+    # Only "\n" ends a line in OBO; str.splitlines() would also break at U+2028, form feeds
+    # and other characters a name may legitimately contain.
+    lines = text.split("\n")
+    if lines and lines[-1] == "":
+        lines.pop()
+    return [line.removesuffix("\r") for line in lines]
+
+
+def split(text: str, path: str = "<text>") -> tuple[str, list[Stanza]]:
+    """The header text and the stanzas of an OBO document, with spans and digests.
+
+    A stanza's `text` is what the parser sees: its lines without comment-only lines (fastobo
+    cannot parse those inside a frame), with `lines` giving each one's line in the file.
+    """
+    lines = _lines(text)
     starts = [i for i, line in enumerate(lines) if line.startswith("[") and _STANZA.match(line)]
     header = "\n".join(lines[: starts[0]] if starts else lines)
     stanzas: list[Stanza] = []
@@ -46,20 +63,43 @@ def split(text: str) -> tuple[str, list[Stanza]]:
             end -= 1
         body = lines[start:end]
         kind = _STANZA.match(lines[start]).group(1)  # type: ignore[union-attr]
+        if kind not in KNOWN_STANZAS:
+            raise OboSyntaxError(f"{path}:{start + 1}: malformed OBO: unknown stanza [{kind}] "
+                                 f"(expected one of {', '.join(KNOWN_STANZAS)})")
         ident = None
         for line in body[1:]:
             found = _ID.match(line)
             if found:
                 ident = found.group(1)
                 break
-        chunk = "\n".join(body) + "\n"
-        digest = hashlib.blake2b(chunk.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
-        stanzas.append(Stanza(kind, ident, start + 1, end, chunk, digest))
+        raw = "\n".join(body) + "\n"
+        digest = hashlib.blake2b(raw.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
+        kept = [(start + 1 + i, line) for i, line in enumerate(body)
+                if not line.lstrip().startswith("!")]
+        chunk = "\n".join(line for _, line in kept) + "\n"
+        stanzas.append(Stanza(kind, ident, start + 1, end, chunk, digest,
+                              tuple(number for number, _ in kept)))
     return header, stanzas
 
 
 def _ident(value: Any) -> str:
     return str(value)
+
+
+def _clause_text(clause: Any) -> str:
+    """The clause as fastobo writes it (qualifiers, xrefs, datatypes kept), without its comment."""
+    text = str(clause)
+    comment = getattr(clause, "comment", None)
+    if comment is not None:
+        suffix = f" ! {comment}"
+        text = text.removesuffix(suffix)
+    return text
+
+
+def _content_digest(clauses: list[str]) -> str:
+    # Order-free: re-ordering clauses is not an edit.
+    joined = "\n".join(sorted(clauses))
+    return hashlib.blake2b(joined.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
 
 
 def _term_from_frame(frame: Any, stanza: Stanza) -> Term:
@@ -74,7 +114,9 @@ def _term_from_frame(frame: Any, stanza: Stanza) -> Term:
     xrefs: list[str] = []
     properties: list[tuple[str, str]] = []
     other: list[tuple[str, str]] = []
+    written: list[str] = []
     for clause in frame:
+        written.append(_clause_text(clause))
         kind = type(clause).__name__
         if kind == "NameClause":
             name = str(clause.name)
@@ -91,7 +133,10 @@ def _term_from_frame(frame: Any, stanza: Stanza) -> Term:
         elif kind == "ConsiderClause":
             consider.append(_ident(clause.term))
         elif kind == "SynonymClause":
-            synonyms.append((str(clause.synonym.desc), str(clause.synonym.scope)))
+            syn = clause.synonym
+            kind_of = str(syn.type) if getattr(syn, "type", None) is not None else ""
+            synonyms.append((str(syn.desc), str(syn.scope), kind_of,
+                             " ".join(str(x.id) for x in syn.xrefs)))
         elif kind == "XrefClause":
             xrefs.append(_ident(clause.xref.id))
         elif kind == "PropertyValueClause":
@@ -101,7 +146,8 @@ def _term_from_frame(frame: Any, stanza: Stanza) -> Term:
             other.append((clause.raw_tag(), clause.raw_value()))
     return Term(_ident(frame.id), name, tuple(parents), tuple(relationships), tuple(disjoint),
                 obsolete, tuple(replaced), tuple(consider), tuple(synonyms), tuple(xrefs),
-                tuple(properties), tuple(other), stanza.line, stanza.end_line, stanza.digest)
+                tuple(properties), tuple(other), stanza.line, stanza.end_line, stanza.digest,
+                _content_digest(written))
 
 
 def _load(text: str, path: str, line_of: Sequence[int]) -> list[Any]:
@@ -119,34 +165,49 @@ def _load(text: str, path: str, line_of: Sequence[int]) -> list[Any]:
         raise OboSyntaxError(f"{path}:{original}: malformed OBO: {detail}") from None
     except (ValueError, TypeError) as exc:
         raise OboSyntaxError(f"{path}: malformed OBO: {exc}") from None
+    except BaseException as exc:
+        if isinstance(exc, (KeyboardInterrupt, SystemExit)):
+            raise
+        raise OboSyntaxError(f"{path}: malformed OBO: the parser failed ({type(exc).__name__}: "
+                             f"{str(exc).splitlines()[0] if str(exc) else 'no detail'})") from None
 
 
 def parse_stanzas(stanzas: Iterable[Stanza], path: str) -> list[Term]:
-    """Parse only these stanzas (an incremental build); Term stanzas become `Term` records."""
-    chosen = [s for s in stanzas if s.kind == "Term"]
+    """Parse these stanzas (all of a file, or only the new ones of an incremental build).
+
+    Every stanza is syntax-checked; Term stanzas become `Term` records.
+    """
+    chosen = list(stanzas)
     if not chosen:
         return []
     parts: list[str] = []
     line_of: list[int] = []
     for stanza in chosen:
         parts.append(stanza.text + "\n")
-        count = stanza.text.count("\n")
-        line_of.extend(range(stanza.line, stanza.line + count))
+        line_of.extend(stanza.lines or range(stanza.line, stanza.line + stanza.text.count("\n")))
         line_of.append(stanza.end_line)  # the blank separator
     frames = _load("".join(parts), path, line_of)
-    term_frames = [f for f in frames if type(f).__name__ == "TermFrame"]
-    if len(term_frames) != len(chosen):
-        raise OboSyntaxError(f"{path}: malformed OBO: stanza count mismatch "
-                             f"({len(chosen)} term stanzas, {len(term_frames)} parsed)")
-    return [_term_from_frame(f, s) for f, s in zip(term_frames, chosen)]
+    if len(frames) != len(chosen):
+        raise OboSyntaxError(f"{path}: malformed OBO: {len(chosen)} stanzas found but "
+                             f"{len(frames)} parsed")
+    return [_term_from_frame(f, s) for f, s in zip(frames, chosen) if s.kind == "Term"]
 
 
 def header_pairs(header: str, path: str) -> tuple[tuple[str, str], ...]:
-    if not header.strip():
+    numbered = [(n, line) for n, line in enumerate(_lines(header), 1)
+                if not line.lstrip().startswith("!")]
+    if not any(line.strip() for _, line in numbered):
         return ()
+    text = "\n".join(line for _, line in numbered) + "\n"
     try:
-        doc = fastobo.loads(header + "\n", threads=1)
+        doc = fastobo.loads(text, threads=1)
     except SyntaxError as exc:
+        local = exc.lineno or 1
+        line = numbered[local - 1][0] if 0 < local <= len(numbered) else local
         detail = (exc.msg or "syntax error").strip()
-        raise OboSyntaxError(f"{path}:{exc.lineno or 1}: malformed OBO header: {detail}") from None
+        raise OboSyntaxError(f"{path}:{line}: malformed OBO header: {detail}") from None
+    except BaseException as exc:
+        if isinstance(exc, (KeyboardInterrupt, SystemExit)):
+            raise
+        raise OboSyntaxError(f"{path}: malformed OBO header: the parser failed") from None
     return tuple((c.raw_tag(), c.raw_value()) for c in doc.header)

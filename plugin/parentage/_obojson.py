@@ -65,7 +65,8 @@ def _term(node: dict[str, Any], edges: list[tuple[str, str]], line_of: dict[str,
             parents.append(curie(obj))
         else:
             relationships.append((_short(pred), curie(obj)))
-    synonyms = tuple((str(s.get("val", "")), _SCOPES.get(str(s.get("pred")), "RELATED"))
+    synonyms = tuple((str(s.get("val", "")), _SCOPES.get(str(s.get("pred")), "RELATED"),
+                      str(s.get("synonymType") or ""), " ".join(map(str, s.get("xrefs") or [])))
                      for s in meta.get("synonyms") or [] if isinstance(s, dict))
     xrefs = tuple(str(x.get("val", "")) for x in meta.get("xrefs") or [] if isinstance(x, dict))
     properties, replaced, consider = [], [], []

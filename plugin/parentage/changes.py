@@ -52,6 +52,10 @@ def changed_fields(old: Term, new: Term, structure_props: frozenset[str]) -> tup
     if (sorted(old.xrefs), props(old, False), sorted(old.other)) != \
             (sorted(new.xrefs), props(new, False), sorted(new.other)):
         out.append("other")
+    if not out and old.content != new.content:
+        # A detail our records do not model (a synonym's type or xrefs, a definition's xrefs,
+        # qualifiers, datatypes) changed: still an edit.
+        out.append("other")
     return tuple(out)
 
 

@@ -46,7 +46,10 @@ def run(argv: Sequence[str]) -> int:
     if entry is None:
         raise ParentageError(f"unknown subcommand {argv[0]!r}; known: {', '.join(COMMANDS)}")
     module = importlib.import_module(f"parentage.commands.{entry[0]}")
-    return int(module.main(list(argv[1:])))
+    try:
+        return int(module.main(list(argv[1:])))
+    except SystemExit as done:  # argparse's --help
+        return done.code if isinstance(done.code, int) else 0
 
 
 def main(argv: Sequence[str] | None = None) -> int:

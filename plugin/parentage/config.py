@@ -151,15 +151,10 @@ def _section(path: str, node: yaml.Node, key: str, record: Any) -> Any:
             values[name] = _expect_float(path, vnode, full)
         else:
             values[name] = _expect_str(path, vnode, full)
-    try:
-        result = replace(record, **values)
-    except TypeError as exc:  # pragma: no cover - keys are checked above
-        raise ConfigError(f"{_where(path, node, key)}: {exc}") from None
-    for name in values:
-        value = getattr(result, name)
+        value = values[name]
         if isinstance(value, (int, float)) and value < 0:
-            raise ConfigError(f"{path}: {key}.{name} must not be negative")
-    return result
+            raise ConfigError(f"{_where(path, vnode, full)} must not be negative")
+    return replace(record, **values)
 
 
 def parse_config(text: str, path: str) -> Config:

@@ -25,14 +25,14 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
 
         PARSE_CALLS["full"] += 1
         return Snapshot(path, blob, parse_json(text, path))
-    header, stanzas = _obo.split(text)
+    header, stanzas = _obo.split(text, path)
     if base is None:
         PARSE_CALLS["full"] += 1
         terms = _obo.parse_stanzas(stanzas, path)
         return Snapshot(path, blob, terms, _obo.header_pairs(header, path))
     PARSE_CALLS["incremental"] += 1
     known = {t.digest: t for t in base.terms.values()}
-    fresh = [s for s in stanzas if s.kind == "Term" and s.digest not in known]
+    fresh = [s for s in stanzas if s.kind != "Term" or s.digest not in known]
     parsed = iter(_obo.parse_stanzas(fresh, path))
     terms = []
     for stanza in stanzas:
@@ -43,18 +43,5 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
             terms.append(old._replace(line=stanza.line, end_line=stanza.end_line))
         else:
             terms.append(next(parsed))
-    header_pairs = base.header if _header_unchanged(base, header) else _obo.header_pairs(header, path)
-    return Snapshot(path, blob, terms, header_pairs)
-
-
-def _header_unchanged(base: Snapshot, header: str) -> bool:
-    # Header clauses are few; comparing their raw tags/values against a cheap line split
-    # avoids a parse in the common case.
-    pairs = []
-    for line in header.splitlines():
-        stripped = line.strip()
-        if not stripped or stripped.startswith("!"):
-            continue
-        tag, _, value = stripped.partition(":")
-        pairs.append((tag.strip(), value.strip()))
-    return tuple(pairs) == tuple((t, v.strip()) for t, v in base.header)
+    # Headers are short: parsing them again is cheaper than proving them unchanged.
+    return Snapshot(path, blob, terms, _obo.header_pairs(header, path))

@@ -7,11 +7,11 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from typing import Any, NamedTuple
 
 from parentage.arbitration import arbitrate, disjoint_findings
-from parentage.changes import affected_terms, diff_ontologies
+from parentage.changes import ChangeSet, affected_terms, diff_ontologies
 from parentage.config import Config
 from parentage.findings import Finding, Review, compare, with_severity
 from parentage.revisions import Side
@@ -29,11 +29,13 @@ def smiles_of(term: Term, config: Config) -> str | None:
     return read_structure(term, config.structure).smiles
 
 
-def is_structured(config: Config):  # type: ignore[no-untyped-def]
-    def check(term: Term) -> bool:
-        s = read_structure(term, config.structure)
-        return bool(s.smiles or s.inchi)
-    return check
+def structured_term(term: Term, config: Config) -> bool:
+    s = read_structure(term, config.structure)
+    return bool(s.smiles or s.inchi)
+
+
+def is_structured(config: Config) -> Callable[[Term], bool]:
+    return lambda term: structured_term(term, config)
 
 
 def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
@@ -66,15 +68,30 @@ def _without(index: Mapping[str, tuple[str, ...]], drop: set[str]) -> dict[str, 
 
 
 def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
-                   others: Mapping[str, tuple[str, ...]]) -> list[Finding]:
-    from parentage.tiers.structure import hierarchy_findings, structure_facts, structure_findings
+                   others: Mapping[str, tuple[str, ...]], read: Iterable[str] | None = None) -> list[Finding]:
+    """Structure, hierarchy and disjointness findings of `term_ids`.
 
-    facts = structure_facts(ontology, term_ids, ws.config, ws.store)
+    Structures are read (RDKit) only for the ids in `read` (default: all of `term_ids`); the
+    hierarchy checks need none, so a change that only moves classes never loads RDKit.
+    """
+    from parentage.tiers.hierarchy import hierarchy_findings
+
     present = [t for t in term_ids if t in ontology.terms]
-    out = structure_findings(ontology, present, ws.config, facts, others)
+    out: list[Finding] = []
+    wanted = present if read is None else [t for t in read if t in ontology.terms]
+    if any(structured_term(ontology.terms[t], ws.config) for t in wanted):
+        from parentage.tiers.structure import structure_facts, structure_findings
+
+        facts = structure_facts(ontology, wanted, ws.config, ws.store)
+        out += structure_findings(ontology, wanted, ws.config, facts, others)
     out += hierarchy_findings(ontology, present)
     out += disjoint_findings(ontology, present)
     return out
+
+
+def structure_changed(changes: ChangeSet) -> list[str]:
+    """Added terms and edits that touched structure fields: the only ones RDKit must read."""
+    return list(changes.added) + [t for t in changes.edited if "structure" in changes.fields.get(t, ())]
 
 
 def _rules(ws: Workspace, side: Side, ontology: Ontology) -> tuple[Any, list[str]]:
@@ -102,8 +119,9 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
     base_index = key_index(ws, base) if base.snapshots else {}
     others = _without(base_index, changed | set(affected))
     base_ids = [t for t in affected if t in base.terms and not base.terms[t].obsolete]
-    head_findings = structure_side(ws, head, affected, others)
-    base_findings = structure_side(ws, base, base_ids, others)
+    read = structure_changed(changes)
+    head_findings = structure_side(ws, head, affected, others, read)
+    base_findings = structure_side(ws, base, base_ids, others, read)
 
     # Rule and model tiers on the structured affected terms, with one model for both ends.
     structured = is_structured(config)

@@ -174,7 +174,8 @@ class Repository:
                 data = handle.read()
             return FileVersion(path, blob_sha(data), data)
         if side.kind == INDEX:
-            line = self.repo.git.ls_files("-s", "--", path)
+            # ":(literal)" so a name with [ or * is not taken as a pattern.
+            line = self.repo.git.ls_files("-s", "--", f":(literal){path}")
             if not line.strip():
                 return FileVersion(path, None, None)
             sha = line.split()[1]

@@ -23,13 +23,14 @@ class Term(NamedTuple):
     obsolete: bool = False
     replaced_by: tuple[str, ...] = ()
     consider: tuple[str, ...] = ()
-    synonyms: tuple[tuple[str, str], ...] = ()  # (text, scope)
+    synonyms: tuple[tuple[str, str, str, str], ...] = ()  # (text, scope, type, xrefs)
     xrefs: tuple[str, ...] = ()
     properties: tuple[tuple[str, str], ...] = ()  # (property, value)
     other: tuple[tuple[str, str], ...] = ()  # every other clause: (tag, raw value)
     line: int = 0  # first line of the stanza, 1-based
     end_line: int = 0  # last non-blank line of the stanza
     digest: str = ""  # hash of the raw stanza text
+    content: str = ""  # hash of the clauses as parsed, order-free (every detail of every clause)
 
     def property_values(self, names: Iterable[str]) -> tuple[str, ...]:
         wanted = set(names)
@@ -159,12 +160,12 @@ class Snapshot:
         terms = []
         for row in data["terms"]:
             (tid, name, parents, rels, disj, obsolete, replaced, consider, syn, xrefs, props,
-             other, line, end_line, digest) = row
+             other, line, end_line, digest, content) = row
             terms.append(Term(tid, name, tuple(parents), tuple(tuple(r) for r in rels),
                               tuple(disj), obsolete, tuple(replaced), tuple(consider),
                               tuple(tuple(s) for s in syn), tuple(xrefs),
                               tuple(tuple(p) for p in props), tuple(tuple(o) for o in other),
-                              line, end_line, digest))
+                              line, end_line, digest, content))
         return cls(data["path"], data["blob"], terms, tuple(tuple(h) for h in data["header"]))
 
 

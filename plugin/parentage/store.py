@@ -13,6 +13,7 @@ import json
 import os
 import sqlite3
 import threading
+import time
 import zlib
 from collections.abc import Iterable, Mapping
 from typing import Any
@@ -48,6 +49,16 @@ class Store:
             if self.path is not None:
                 os.makedirs(os.path.dirname(os.path.abspath(self.path)), exist_ok=True)
                 target = self.path
+            conn = self._open(target)
+            self._conn = conn
+        return self._conn
+
+    def _open(self, target: str) -> sqlite3.Connection:
+        # Switching a new file to WAL needs a moment with no writer; a parallel hook may be
+        # writing, and sqlite answers "locked" at once instead of waiting, so retry.
+        deadline = time.monotonic() + 60
+        while True:
+            conn = None
             try:
                 conn = sqlite3.connect(target, timeout=60, isolation_level=None,
                                        check_same_thread=False)
@@ -56,11 +67,20 @@ class Store:
                     conn.execute("PRAGMA journal_mode = WAL")
                 conn.execute("PRAGMA synchronous = NORMAL")
                 conn.executescript(_SCHEMA)
+                return conn
+            except sqlite3.OperationalError as exc:
+                if conn is not None:
+                    conn.close()
+                busy = "locked" in str(exc) or "busy" in str(exc)
+                if not busy or time.monotonic() > deadline:
+                    raise ParentageError(f"{self.path}: cache is not usable ({exc}); delete it "
+                                         "and run again") from None
+                time.sleep(0.05)
             except sqlite3.DatabaseError as exc:
+                if conn is not None:
+                    conn.close()
                 raise ParentageError(f"{self.path}: cache is not usable ({exc}); delete it and "
                                      "run again") from None
-            self._conn = conn
-        return self._conn
 
     def close(self) -> None:
         if self._conn is not None:

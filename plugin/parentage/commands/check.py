@@ -14,7 +14,7 @@ from parentage.changes import affected_terms, diff_ontologies
 from parentage.commands.common import emit, open_workspace, parser
 from parentage.findings import compare, with_severity
 from parentage.report import text as text_report
-from parentage.review import _without, is_structured, key_index, structure_side
+from parentage.review import _without, is_structured, key_index, structure_changed, structure_side
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -35,13 +35,17 @@ def main(argv: Sequence[str] | None = None) -> int:
         changes = diff_ontologies(base, head, ws.config.structure)
         if args.all:
             ids = [t for t in head.terms if not head.terms[t].obsolete]
+            read = ids
         else:
             ids = list(affected_terms(base, head, changes, (), is_structured(ws.config)))
+            read = structure_changed(changes)
         changed = set(changes.touched) | set(changes.removed)
-        others = _without(key_index(ws, base), changed | set(ids)) if base.snapshots else {}
-        head_findings = structure_side(ws, head, ids, others)
+        others: dict[str, tuple[str, ...]] = {}
+        if base.snapshots and read:
+            others = _without(key_index(ws, base), changed | set(ids))
+        head_findings = structure_side(ws, head, ids, others, read)
         base_ids = [t for t in ids if t in base.terms and not base.terms[t].obsolete]
-        base_findings = structure_side(ws, base, base_ids, others) if base.snapshots else []
+        base_findings = structure_side(ws, base, base_ids, others, read) if base.snapshots else []
         findings = [f for f in with_severity(compare(base_findings, head_findings), ws.config.severity)
                     if f.status != "resolved"]
     finally:

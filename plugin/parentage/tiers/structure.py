@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import math
 import re
-from collections import deque
 from collections.abc import Iterable, Mapping
 
 from parentage.chem.molecules import MolFacts, analyse, analyse_many, hill_formula, parse_formula
@@ -12,8 +11,9 @@ from parentage.config import Config, Limits
 from parentage.findings import Finding
 from parentage.snapshot import Ontology, Structure, Term, read_structure
 from parentage.store import Store
+from parentage.tiers import live_terms as _live
+from parentage.tiers import term_finding as _finding
 
-TIER = ("structure",)
 _KEY_SHAPE = re.compile(r"^[A-Z]{14}-[A-Z]{10}-[A-Z]$")
 
 
@@ -24,11 +24,6 @@ def _source(structure: Structure) -> tuple[str, str] | None:
     if structure.inchi is not None:
         return "inchi", structure.inchi
     return None
-
-
-def _live(ontology: Ontology, term_ids: Iterable[str]) -> list[Term]:
-    terms = (ontology.terms.get(t) for t in dict.fromkeys(term_ids))
-    return [t for t in terms if t is not None and not t.obsolete]
 
 
 def structure_facts(ontology: Ontology, term_ids: Iterable[str], config: Config,
@@ -177,12 +172,6 @@ def _check_formula(written: str, facts: MolFacts) -> list[Mismatch]:
                       f"formula {shown} differs from the structure's {expected}")]
 
 
-def _finding(ontology: Ontology, term: Term, kind: str, message: str,
-             classes: tuple[str, ...] = (), **evidence: object) -> Finding:
-    return Finding(kind, term.id, message, classes, TIER, evidence,
-                   ontology.path_of.get(term.id, ""), term.line)
-
-
 def structure_findings(ontology: Ontology, term_ids: Iterable[str], config: Config,
                        facts: Mapping[str, MolFacts],
                        other_keys: Mapping[str, tuple[str, ...]]) -> list[Finding]:
@@ -221,79 +210,4 @@ def structure_findings(ontology: Ontology, term_ids: Iterable[str], config: Conf
             out.append(_finding(ontology, term, "duplicate-structure",
                                 f"same standard InChIKey {key} as {', '.join(names)}",
                                 inchikey=key, others=names))
-    return out
-
-
-# -- hierarchy checks -------------------------------------------------------------------------
-
-def _path_back(ontology: Ontology, start: str, goal: str) -> list[str] | None:
-    """Shortest is_a path start -> ... -> goal (breadth first), or None."""
-    before: dict[str, str | None] = {start: None}
-    queue = deque([start])
-    while queue:
-        current = queue.popleft()
-        if current == goal:
-            path = [current]
-            while (step := before[path[-1]]) is not None:
-                path.append(step)
-            return path[::-1]
-        term = ontology.terms.get(current)
-        for parent in term.parents if term is not None else ():
-            if parent not in before:
-                before[parent] = current
-                queue.append(parent)
-    return None
-
-
-def _cycles(ontology: Ontology, term: Term) -> list[list[str]]:
-    """One shortest cycle through `term` for each parent that leads back to it."""
-    if term.id not in ontology.ancestors(term.id):
-        return []
-    found = []
-    for parent in dict.fromkeys(term.parents):
-        path = [term.id] if parent == term.id else _path_back(ontology, parent, term.id)
-        if path is not None:
-            found.append([term.id] + path)
-    return found
-
-
-def hierarchy_findings(ontology: Ontology, term_ids: Iterable[str]) -> list[Finding]:
-    """Cycles, dangling or obsolete parents, and redundant parents of the listed live terms."""
-    out: list[Finding] = []
-    terms = ontology.terms
-    for term in _live(ontology, term_ids):
-        for cycle in _cycles(ontology, term):
-            out.append(_finding(ontology, term, "hierarchy-cycle",
-                                f"is_a cycle: {' -> '.join(cycle)}", tuple(cycle[1:-1]) or (term.id,),
-                                cycle=cycle))
-        references = [("is_a", p) for p in term.parents] + list(term.relationships)
-        for clause, target in dict.fromkeys(references):
-            target_term = terms.get(target)
-            if target_term is None:
-                out.append(_finding(ontology, term, "parent-dangling",
-                                    f"{clause} {target}: {target} is not defined", (target,),
-                                    clause=clause, target=target))
-            elif target_term.obsolete:
-                replacement = target_term.replaced_by or target_term.consider
-                hint = f" (replaced by {', '.join(replacement)})" if replacement else ""
-                out.append(_finding(ontology, term, "parent-obsolete",
-                                    f"{clause} {target}: {target} is obsolete{hint}", (target,),
-                                    clause=clause, target=target,
-                                    replaced_by=list(target_term.replaced_by)))
-        out += _redundant(ontology, term)
-    return out
-
-
-def _redundant(ontology: Ontology, term: Term) -> list[Finding]:
-    parents = list(dict.fromkeys(term.parents))
-    out = []
-    for parent in parents:
-        # Parents that imply each other lie on a cycle, which is reported as one.
-        by = [other for other in parents if other != parent
-              and parent in ontology.ancestors(other) and other not in ontology.ancestors(parent)]
-        if by:
-            out.append(_finding(ontology, term, "parent-redundant",
-                                f"is_a {parent} is already implied by is_a {by[0]}"
-                                + (f" (and {', '.join(by[1:])})" if by[1:] else ""),
-                                (parent,), parent=parent, implied_by=by))
     return out
