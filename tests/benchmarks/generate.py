@@ -384,13 +384,15 @@ def apply_change(onto: Ontology, base: list[Compound], held: list[Compound], cou
                 + ["structure"] * (count * 2 // 10))
         plan += ["name"] * (count - len(plan))
     rng.shuffle(plan)
-    targets = rng.sample(onto.compounds, sum(1 for k in plan if k != "add"))
+    targets = rng.sample(onto.compounds, min(len(onto.compounds), sum(1 for k in plan if k != "add")))
     spare = list(held)
     groups = [g for g in onto.group_id.values()]
     tally: dict[str, int] = {}
     for kind in plan:
         if kind in ("add", "structure") and not spare:
             kind = "name"  # too few held-back structures at this size
+        if kind != "add" and not targets:
+            break  # a tiny ontology has fewer terms than the change asks for
         tally[kind] = tally.get(kind, 0) + 1
         if kind == "add":
             onto.add(spare.pop(0))
