@@ -1,0 +1,673 @@
+"""SMARTS for the rule tier: compile once, screen cheaply, match within bounds.
+
+Screens are derived from each pattern and are sound: they only reject a structure that the
+pattern cannot match. A pattern atom (or bond) whose query fixes its element and aromaticity
+(or its bond type) needs that many such atoms (bonds) in the structure; a recursive
+`$(...)` that every match must satisfy adds the needs of its own pattern. Anything the screen
+does not understand counts as "could be anything", which keeps it sound.
+
+Every search is bounded: RDKit's `maxMatches` per search, and `limits.rule_seconds` per
+structure. RDKit cannot be interrupted from Python, so the matching runs in a forked worker
+process that is killed when one structure takes too long; that structure is reported as
+timed out and the worker starts again after it.
+
+Rule proposal helpers live here too (they need RDKit): atom environments written as SMARTS
+and a bounded maximum common substructure.
+"""
+from __future__ import annotations
+
+import json
+import multiprocessing
+import re
+import time
+from collections.abc import Callable, Iterable, Sequence
+from multiprocessing.connection import wait
+from typing import Any, NamedTuple
+
+import numpy as np
+from rdkit import Chem
+from rdkit.Chem import rdFMCS, rdMolDescriptors
+
+from parentage.chem.molecules import captured_log, parse_smiles
+from parentage.config import Limits
+from parentage.errors import ParentageError
+
+Atoms = tuple[int, ...]
+DEFAULT_LIMITS = Limits()
+
+# -- what a query atom or bond can be ------------------------------------------------------
+
+# Atom-type keys: 2 * atomic number + aromatic flag; bond keys: RDKit's BondType numbers.
+_ATOM_KEYS = frozenset(range(2 * 119))
+_BOND_KEYS = frozenset(int(k) for k in Chem.BondType.values)
+_AROMATIC = frozenset(k for k in _ATOM_KEYS if k % 2)
+_ALIPHATIC = _ATOM_KEYS - _AROMATIC
+_BOND_PAIRS = {"SingleOrAromaticBond": frozenset({1, 12}), "SingleOrDoubleBond": frozenset({1, 2}),
+               "DoubleOrAromaticBond": frozenset({2, 12})}
+_MAX_RECURSION = 3  # nesting depth of $() whose needs are followed
+_CHUNK = 32  # structures read and screened together
+
+
+class _Node(NamedTuple):
+    label: str
+    children: tuple[_Node, ...]
+
+
+def _describe_tree(text: str) -> _Node:
+    """RDKit's `DescribeQuery` text (two spaces of indent per level) as a tree."""
+    rows = [(len(line) - len(line.lstrip(" ")), line.strip()) for line in text.splitlines() if line.strip()]
+
+    def build(pos: int) -> tuple[_Node, int]:
+        indent, label = rows[pos]
+        kids: list[_Node] = []
+        pos += 1
+        while pos < len(rows) and rows[pos][0] > indent:
+            kid, pos = build(pos)
+            kids.append(kid)
+        return _Node(label, tuple(kids)), pos
+
+    return build(0)[0] if rows else _Node("AtomNull", ())
+
+
+def _negated(label: str) -> bool:
+    return " != val" in label or " not in " in label
+
+
+def _atom_set(node: _Node) -> tuple[frozenset[int], bool]:
+    """(atom-type keys the query can match, whether that set is exact)."""
+    name, *args = node.label.split()
+    if name in ("AtomAnd", "AtomOr") and node.children and not _negated(node.label):
+        parts = [_atom_set(c) for c in node.children]
+        sets = [p[0] for p in parts]
+        merged = frozenset.intersection(*sets) if name == "AtomAnd" else frozenset.union(*sets)
+        return merged, all(p[1] for p in parts)
+    if name == "AtomNull":
+        return _ATOM_KEYS, True
+    exact: frozenset[int] | None = None
+    if name == "AtomType" and args and args[0].lstrip("-").isdigit():
+        value = int(args[0])
+        exact = frozenset({2 * (value - 1000) + 1}) if value >= 1000 else frozenset({2 * value})
+    elif name == "AtomAtomicNum" and args and args[0].isdigit():
+        z = int(args[0])
+        exact = frozenset({2 * z, 2 * z + 1})
+    elif name == "AtomIsAromatic" and args[:1] == ["1"]:
+        exact = _AROMATIC
+    elif name == "AtomIsAliphatic" and args[:1] == ["1"]:
+        exact = _ALIPHATIC
+    if exact is None:
+        return _ATOM_KEYS, False  # H count, degree, charge, ring, recursion...: not a type
+    return (_ATOM_KEYS - exact, True) if _negated(node.label) else (exact & _ATOM_KEYS, True)
+
+
+def _bond_set(node: _Node) -> tuple[frozenset[int], bool]:
+    name, *args = node.label.split()
+    if name in ("BondAnd", "BondOr") and node.children and not _negated(node.label):
+        parts = [_bond_set(c) for c in node.children]
+        sets = [p[0] for p in parts]
+        merged = frozenset.intersection(*sets) if name == "BondAnd" else frozenset.union(*sets)
+        return merged, all(p[1] for p in parts)
+    if name == "BondNull":
+        return _BOND_KEYS, True
+    exact: frozenset[int] | None = None
+    if name == "BondOrder" and args and args[0].isdigit():
+        exact = frozenset({int(args[0])})
+    elif name in _BOND_PAIRS and args[:1] == ["1"]:
+        exact = _BOND_PAIRS[name]
+    if exact is None:
+        return _BOND_KEYS, False
+    return (_BOND_KEYS - exact, True) if _negated(node.label) else (exact, True)
+
+
+def _required_recursions(atom_smarts: str) -> list[str]:
+    """The `$(...)` parts of one atom's SMARTS that every match must satisfy.
+
+    Only a part that stands alone in a pure conjunction counts (not under `!`, not one of
+    several `,` alternatives); anything less plain is left out, which keeps the screen sound.
+    """
+    if not (atom_smarts.startswith("[") and atom_smarts.endswith("]")):
+        return []
+    inner = atom_smarts[1:-1]
+    # Split at depth 0 into units and the operators between them.
+    units: list[str] = []
+    ops: list[str] = []
+    depth, start = 0, 0
+    for pos, char in enumerate(inner):
+        if char in "([":
+            depth += 1
+        elif char in ")]":
+            depth -= 1
+        elif depth == 0 and char in ";,&":
+            units.append(inner[start:pos])
+            ops.append(char)
+            start = pos + 1
+    units.append(inner[start:])
+    if depth != 0:
+        return []
+    # Group by the lowest-precedence operator ';', then by ','.
+    groups: list[list[tuple[str, str]]] = [[]]  # each group: (unit, op before it)
+    for index, unit in enumerate(units):
+        before = ops[index - 1] if index else ""
+        if before == ";":
+            groups.append([])
+        groups[-1].append((unit, before))
+    out = []
+    for group in groups:
+        if any(before == "," for _, before in group[1:]):
+            continue  # alternatives: no single part is required
+        for unit, _ in group:
+            if unit.startswith("$(") and unit.endswith(")") and _balanced(unit[2:-1]):
+                out.append(unit[2:-1])
+    return out
+
+
+def _balanced(text: str) -> bool:
+    depth = 0
+    for char in text:
+        depth += char in "(["
+        depth -= char in ")]"
+        if depth < 0:
+            return False
+    return depth == 0
+
+
+Need = tuple[frozenset[int], int]  # (keys, how many atoms or bonds of those keys)
+
+
+class Screen(NamedTuple):
+    atoms: int  # pattern atoms: a structure needs at least as many
+    atom_needs: tuple[Need, ...]
+    bond_needs: tuple[Need, ...]
+
+
+def _needs(sets: list[frozenset[int]], universe: frozenset[int]) -> list[Need]:
+    out = []
+    for chosen in set(sets):
+        if chosen == universe:
+            continue
+        out.append((chosen, sum(1 for s in sets if s <= chosen)))
+    return out
+
+
+def _screen(query: Chem.Mol, depth: int = 0) -> Screen:
+    atom_sets: list[frozenset[int]] = []
+    extra_atoms: list[Need] = []
+    extra_bonds: list[Need] = []
+    for atom in query.GetAtoms():
+        if not atom.HasQuery():
+            atom_sets.append(frozenset({2 * atom.GetAtomicNum() + int(atom.GetIsAromatic())}))
+            continue
+        atom_sets.append(_atom_set(_describe_tree(atom.DescribeQuery()))[0])
+        if depth < _MAX_RECURSION:
+            for text in _required_recursions(atom.GetSmarts()):
+                sub = Chem.MolFromSmarts(text)
+                if sub is not None:
+                    inner = _screen(sub, depth + 1)
+                    extra_atoms += inner.atom_needs
+                    extra_bonds += inner.bond_needs
+    bond_sets = [_bond_set(_describe_tree(b.DescribeQuery()))[0] if b.HasQuery()
+                 else frozenset({int(b.GetBondType())}) for b in query.GetBonds()]
+    atom_needs = _needs(atom_sets, _ATOM_KEYS) + extra_atoms
+    bond_needs = _needs(bond_sets, _BOND_KEYS) + extra_bonds
+    # Most selective first: an empty or tiny key set usually rejects at once.
+    atom_needs.sort(key=lambda n: len(n[0]))
+    bond_needs.sort(key=lambda n: len(n[0]))
+    return Screen(query.GetNumAtoms(), tuple(atom_needs), tuple(bond_needs))
+
+
+# -- patterns ---------------------------------------------------------------------------------
+
+class Pattern:
+    """One compiled SMARTS with its screen. Opaque outside this module."""
+
+    __slots__ = ("query", "screen", "text")
+
+    def __init__(self, text: str, query: Chem.Mol, screen: Screen) -> None:
+        self.text = text
+        self.query = query
+        self.screen = screen
+
+    def __repr__(self) -> str:
+        return f"Pattern({self.text!r})"
+
+
+def compile_smarts(text: str) -> Pattern:
+    """Compile one SMARTS; a bad one raises ParentageError with RDKit's reason."""
+    if not isinstance(text, str) or not text.strip():
+        raise ParentageError("empty SMARTS")
+    with captured_log() as log:
+        query = Chem.MolFromSmarts(text)
+    if query is None or query.GetNumAtoms() == 0:
+        reason = next((line.removeprefix("SMARTS Parse Error: ") for line in log
+                       if line.startswith("SMARTS Parse Error")), "syntax error")
+        raise ParentageError(f"not a valid SMARTS {text!r}: {reason}")
+    return Pattern(text, query, _screen(query))
+
+
+def is_valid_smarts(text: str) -> bool:
+    try:
+        compile_smarts(text)
+    except ParentageError:
+        return False
+    return True
+
+
+# -- structures -------------------------------------------------------------------------------
+
+_SYMBOLS = tuple(Chem.GetPeriodicTable().GetElementSymbol(z) for z in range(119))
+ELEMENT_SYMBOLS = frozenset(_SYMBOLS[1:])
+
+
+class Facts(NamedTuple):
+    """What the screens and the rules' extra constraints read from one structure."""
+
+    atoms: int
+    atom_counts: dict[int, int]  # 2 * atomic number + aromatic -> atoms (an upper bound)
+    bond_counts: dict[int, int]  # bond type -> bonds (an upper bound)
+    charge: int
+    elements: frozenset[str]
+
+
+_FORMULA_PART = re.compile(r"([A-Z][a-z]?|\*)(\d*)")
+_Z_OF = {**{s: z for z, s in enumerate(_SYMBOLS) if z}, "*": 0}
+_BRACKET_ATOM = re.compile(r"\[[0-9]*([A-Za-z][a-z]?|\*)[^\]]*\]")
+_BARE_ATOM = re.compile(r"Cl|Br|[BCNOSPFI]|[bcnops]|\*")
+_BOND_QUERIES = {2: Chem.MolFromSmarts("*=*"), 3: Chem.MolFromSmarts("*#*")}
+_ANY_AROMATIC = Chem.MolFromSmarts("a")
+
+
+def _text_counts(smiles: str) -> tuple[dict[int, int], dict[int, int]] | None:
+    """(atomic number -> atoms, bond type -> at most this many) read from a SMILES text.
+
+    Every atom of the text is an atom of the molecule (RDKit only drops written hydrogens),
+    so heavy-atom counts are exact. A double bond is written '=' or comes from kekulising
+    atoms written aromatic, so '=' plus the aromatic-written atoms bounds the double bonds;
+    a triple bond is always written '#'.
+    """
+    text = smiles.split()[0] if smiles.strip() else ""
+    counts: dict[int, int] = {}
+    lower = 0
+    for match in _BRACKET_ATOM.finditer(text):
+        symbol = match.group(1)
+        z = _Z_OF.get(symbol[0].upper() + symbol[1:])
+        if z is None:
+            return None
+        counts[z] = counts.get(z, 0) + 1
+        lower += symbol[0].islower()
+    outside = _BRACKET_ATOM.sub("", text)
+    for symbol in _BARE_ATOM.findall(outside):
+        z = _Z_OF[symbol.capitalize()]
+        counts[z] = counts.get(z, 0) + 1
+        lower += symbol.islower()
+    return counts, {2: outside.count("=") + lower, 3: outside.count("#")}
+
+
+def _formula_counts(mol: Chem.Mol) -> dict[int, int] | None:
+    """Atomic number -> atoms from RDKit's formula (hydrogen: the total, implicit ones too)."""
+    counts: dict[int, int] = {}
+    formula = rdMolDescriptors.CalcMolFormula(mol)
+    for symbol, digits in _FORMULA_PART.findall(formula.rstrip("+-0123456789")):
+        z = _Z_OF.get(symbol)
+        if z is None:
+            return None
+        counts[z] = counts.get(z, 0) + (int(digits) if digits else 1)
+    return counts
+
+
+def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int] = (2, 3)) -> Facts:
+    """Screen facts of one structure; every count is at least the true count.
+
+    Walking RDKit's atom objects from Python costs more than most searches, so the counts
+    come from the SMILES text the molecule was read from (or RDKit's formula), checked
+    against the molecule's heavy-atom count. Aromatic and aliphatic atoms of an element are
+    each bounded by the element's count, aromatic ones only where the molecule has any.
+    Bond types in `bond_types` are bounded as the text allows or counted by search; every
+    other type is bounded by the number of bonds.
+    """
+    atoms, heavy = mol.GetNumAtoms(), mol.GetNumHeavyAtoms()
+    from_text = _text_counts(smiles) if smiles else None
+    counts = from_text[0] if from_text else _formula_counts(mol)
+    if counts is None or sum(n for z, n in counts.items() if z > 1) != heavy:
+        counts, from_text = {}, None
+        for atom in mol.GetAtoms():
+            z = atom.GetAtomicNum()
+            counts[z] = counts.get(z, 0) + 1
+    aromatic = rdMolDescriptors.CalcNumAromaticRings(mol) > 0 or mol.HasSubstructMatch(_ANY_AROMATIC)
+    keys: dict[int, int] = {}
+    for z, n in counts.items():
+        keys[2 * z] = min(n, atoms)
+        if aromatic:
+            keys[2 * z + 1] = min(n, atoms)
+    total = mol.GetNumBonds()
+    bonds = dict.fromkeys(_BOND_KEYS, total)
+    for kind in bond_types:
+        if from_text is not None and kind in from_text[1]:
+            bonds[kind] = min(total, from_text[1][kind])
+        elif kind in _BOND_QUERIES and total:
+            bonds[kind] = len(mol.GetSubstructMatches(_BOND_QUERIES[kind], uniquify=True,
+                                                      maxMatches=total))
+    elements = {_SYMBOLS[z] for z, n in counts.items() if n and z != 1}
+    if mol.GetNumAtoms(onlyExplicit=False) > heavy + counts.get(0, 0):
+        elements.add("H")  # hydrogens, implicit or written
+    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), frozenset(elements))
+
+
+class ScreenTable:
+    """The screens of many patterns, checked together on one structure with numpy.
+
+    Needs shared by several patterns are counted once per structure.
+    """
+
+    def __init__(self, patterns: Sequence[Pattern]) -> None:
+        atom_needs: dict[Need, int] = {}
+        bond_needs: dict[Need, int] = {}
+        uses: list[tuple[list[int], list[int]]] = []
+        for pattern in patterns:
+            a = [atom_needs.setdefault(n, len(atom_needs)) for n in pattern.screen.atom_needs]
+            b = [bond_needs.setdefault(n, len(bond_needs)) for n in pattern.screen.bond_needs]
+            uses.append((a, b))
+        self.atom_matrix = np.zeros((len(_ATOM_KEYS), len(atom_needs)), dtype=np.int32)
+        self.atom_least = np.array([n for _, n in atom_needs], dtype=np.int32)
+        for (keys, _), col in atom_needs.items():
+            self.atom_matrix[sorted(keys), col] = 1
+        self.bond_matrix = np.zeros((max(_BOND_KEYS) + 1, len(bond_needs)), dtype=np.int32)
+        self.bond_least = np.array([n for _, n in bond_needs], dtype=np.int32)
+        for (keys, _), col in bond_needs.items():
+            self.bond_matrix[sorted(keys), col] = 1
+        # Which needs each pattern has: a (needs x patterns) 0/1 matrix.
+        self.atom_uses = np.zeros((len(atom_needs), len(patterns)), dtype=np.int32)
+        self.bond_uses = np.zeros((len(bond_needs), len(patterns)), dtype=np.int32)
+        for p, (a, b) in enumerate(uses):
+            self.atom_uses[a, p] = 1
+            self.bond_uses[b, p] = 1
+        self.sizes = np.array([p.screen.atoms for p in patterns], dtype=np.int32)
+        # Bond types worth counting: those some need is made of alone.
+        self.bond_types = tuple(sorted({k for keys, _ in bond_needs for k in keys
+                                        if keys <= _BOND_QUERIES.keys()}))
+
+    def passing(self, many: Sequence[Facts]) -> np.ndarray:
+        """(structures x patterns) booleans: False only where the pattern cannot match."""
+        atoms = np.zeros((len(many), self.atom_matrix.shape[0]), dtype=np.int32)
+        bonds = np.zeros((len(many), self.bond_matrix.shape[0]), dtype=np.int32)
+        for row, facts in enumerate(many):
+            for key, count in facts.atom_counts.items():
+                atoms[row, key] = count
+            for key, count in facts.bond_counts.items():
+                bonds[row, key] = count
+        atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(np.int32)
+        bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(np.int32)
+        failed = atom_short @ self.atom_uses + bond_short @ self.bond_uses
+        sizes = np.array([f.atoms for f in many], dtype=np.int32)
+        return (failed == 0) & (self.sizes[None, :] <= sizes[:, None])
+
+
+def passes(pattern: Pattern, mol: Chem.Mol) -> bool:
+    """The screen of one pattern on one structure (False: it cannot match)."""
+    return bool(ScreenTable([pattern]).passing([facts_of(mol)])[0, 0])
+
+
+def _params(limits: Limits) -> Chem.SubstructMatchParameters:
+    params = Chem.SubstructMatchParameters()
+    params.maxMatches = max(1, limits.max_matches)
+    params.uniquify = True
+    params.numThreads = 1
+    return params
+
+
+def find(pattern: Pattern, mol: Chem.Mol, limits: Limits = DEFAULT_LIMITS,
+         screen: bool = True) -> tuple[Atoms, ...]:
+    """Every match (up to `limits.max_matches`) of one pattern, in this process, unbounded in time."""
+    if screen and not passes(pattern, mol):
+        return ()
+    return tuple(tuple(m) for m in mol.GetSubstructMatches(pattern.query, _params(limits)))
+
+
+def read_structure(item: str | Chem.Mol, limits: Limits) -> tuple[Chem.Mol | None, str | None]:
+    if isinstance(item, Chem.Mol):
+        return item, None
+    mol, error, _log = parse_smiles(item, limits)
+    return mol, error
+
+
+# -- bounded matching of many patterns over many structures ----------------------------------
+
+class Outcome(NamedTuple):
+    """The matches of the wanted patterns on one structure, or why there are none."""
+
+    matches: dict[int, tuple[Atoms, ...]]  # pattern index -> matches; absent: no match
+    checked: frozenset[int]  # the pattern indices that were looked at
+    charge: int = 0
+    elements: frozenset[str] = frozenset()
+    error: str | None = None  # unreadable structure, time limit, or a matching failure
+
+
+def _prepare(item: str | Chem.Mol, limits: Limits,
+             bond_types: Iterable[int]) -> tuple[Chem.Mol | None, Facts | None, str | None]:
+    try:
+        mol, error = read_structure(item, limits)
+        if mol is None:
+            return None, None, error or "structure unreadable"
+        return mol, facts_of(mol, item if isinstance(item, str) else None, bond_types), None
+    except Exception as exc:  # noqa: BLE001 - one bad structure must not stop the rest
+        return None, None, f"structure unreadable: {type(exc).__name__}: {exc}"
+
+
+def _matches(index: int, mol: Chem.Mol, facts: Facts, ok: Any, patterns: Sequence[Pattern],
+             chosen: list[int], params: Chem.SubstructMatchParameters) -> list[Any]:
+    found = []
+    try:
+        for p in chosen:
+            if ok[p]:
+                hits = mol.GetSubstructMatches(patterns[p].query, params)
+                if hits:
+                    found.append([p, [list(h) for h in hits]])
+    except Exception as exc:  # noqa: BLE001 - reported for this structure only
+        return [index, [], [], 0, [], f"matching failed: {type(exc).__name__}: {exc}"]
+    return [index, found, chosen, facts.charge, sorted(facts.elements), None]
+
+
+def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
+         wanted: Sequence[Iterable[int]], limits: Limits, progress: Any,
+         send: Callable[[list[list[Any]]], None]) -> None:
+    """Match in chunks: read a chunk, screen it at once, then search each structure.
+
+    `progress` holds (index, start time) of the structure being worked on; its time carries
+    over from reading to searching, so one bound covers both.
+    """
+    params = _params(limits)
+    table = ScreenTable(patterns)
+    for at in range(0, len(todo), _CHUNK):
+        chunk = todo[at:at + _CHUNK]
+        ready: list[tuple[int, Chem.Mol, Facts, float]] = []
+        rows: list[list[Any]] = []
+        for index in chunk:
+            started = time.monotonic()
+            # Time first, then index: the parent reads index then time, so it never pairs a
+            # new index with an old start time.
+            progress[1] = started
+            progress[0] = float(index)
+            mol, facts, error = _prepare(items[index], limits, table.bond_types)
+            if mol is None or facts is None:
+                rows.append([index, [], sorted(set(wanted[index])), 0, [], error])
+            else:
+                ready.append((index, mol, facts, time.monotonic() - started))
+        ok = table.passing([r[2] for r in ready]) if ready and patterns else None
+        for row, (index, mol, facts, spent) in enumerate(ready):
+            progress[1] = time.monotonic() - spent
+            progress[0] = float(index)
+            chosen = sorted(set(wanted[index]))
+            rows.append(_matches(index, mol, facts, ok[row] if ok is not None else (),
+                                 patterns, chosen, params))
+        send(rows)
+
+
+def _decode(row: list[Any]) -> tuple[int, Outcome]:
+    index, found, chosen, charge, elements, error = row
+    matches = {p: tuple(tuple(h) for h in hits) for p, hits in found}
+    return index, Outcome(matches, frozenset(chosen), charge, frozenset(elements), error)
+
+
+def _worker(todo: list[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
+            wanted: Sequence[Iterable[int]], limits: Limits, progress: Any, conn: Any) -> None:
+    _run(todo, items, patterns, wanted, limits, progress,
+         lambda rows: conn.send_bytes(json.dumps(rows).encode()))
+    conn.send_bytes(json.dumps([None]).encode())
+    conn.close()
+
+
+def _fork_context() -> Any:
+    try:
+        return multiprocessing.get_context("fork")
+    except ValueError:  # pragma: no cover - platforms without fork
+        return None
+
+
+def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
+               wanted: Sequence[Iterable[int]], limits: Limits = DEFAULT_LIMITS) -> list[Outcome]:
+    """For each structure (SMILES or molecule), the matches of the patterns `wanted[i]` names.
+
+    A structure whose parsing and matching together take longer than `limits.rule_seconds`
+    gets an Outcome with an error and no matches.
+    """
+    if len(items) != len(wanted):
+        raise ValueError("one set of wanted patterns per structure")
+    results: dict[int, Outcome] = {}
+    todo = list(range(len(items)))
+    ctx = _fork_context()
+    if ctx is None or not todo:  # pragma: no cover - no fork: in process, maxMatches only
+        _run(todo, items, patterns, wanted, limits, [0.0, 0.0],
+             lambda rows: results.update(_decode(r) for r in rows))
+        return [results[i] for i in range(len(items))]
+    bound = max(0.01, float(limits.rule_seconds))
+    while todo:
+        progress = ctx.RawArray("d", [-1.0, time.monotonic()])
+        receiver, sender = ctx.Pipe(duplex=False)
+        proc = ctx.Process(target=_worker, args=(todo, items, patterns, wanted, limits, progress, sender),
+                           daemon=True)
+        proc.start()
+        sender.close()
+        finished = False
+        stuck: tuple[int, str] | None = None
+        try:
+            while not finished and stuck is None:
+                ready = wait([receiver, proc.sentinel], timeout=min(0.05, bound / 4))
+                if receiver in ready:
+                    try:
+                        rows = json.loads(receiver.recv_bytes())
+                    except (EOFError, OSError):
+                        rows = None
+                    if rows is not None:
+                        for row in rows:
+                            if row is None:
+                                finished = True
+                            else:
+                                index, outcome = _decode(row)
+                                results[index] = outcome
+                        continue
+                if proc.sentinel in ready and not receiver.poll():
+                    current = int(progress[0])
+                    stuck = (current, "matching failed: the matching process stopped unexpectedly")
+                    break
+                current, started = int(progress[0]), progress[1]
+                if current >= 0 and current not in results and time.monotonic() - started > bound:
+                    why = f"time limit: matching took longer than {bound:g} s (limits.rule_seconds)"
+                    stuck = (current, why)
+        finally:
+            if proc.is_alive():
+                proc.kill()
+            proc.join()
+            receiver.close()
+        if stuck is not None and stuck[0] >= 0 and stuck[0] not in results:
+            results[stuck[0]] = Outcome({}, frozenset(), error=stuck[1])
+        todo = [i for i in todo if i not in results]
+        if stuck is None and todo:  # pragma: no cover - the worker ended without its results
+            for i in todo:
+                results[i] = Outcome({}, frozenset(), error="matching failed: no result")
+            todo = []
+    return [results[i] for i in range(len(items))]
+
+
+# -- helpers for proposing rules --------------------------------------------------------------
+
+_BOND_SYMBOL = {1: "-", 2: "=", 3: "#", 12: ":"}
+
+
+def _label(atom: Chem.Atom, detailed: bool) -> str:
+    parts = [f"#{atom.GetAtomicNum()}", "a" if atom.GetIsAromatic() else "A"]
+    if detailed:
+        charge = atom.GetFormalCharge()
+        parts += [f"H{atom.GetTotalNumHs()}", f"D{atom.GetDegree()}",
+                  f"+{charge}" if charge >= 0 else f"-{-charge}"]
+    return "[" + ";".join(parts) + "]"
+
+
+def _bond(bond: Chem.Bond) -> str:
+    return _BOND_SYMBOL.get(int(bond.GetBondType()), "~")
+
+
+def _branch(atom: Chem.Atom, via: Chem.Bond, detailed: bool, shell: bool) -> str:
+    """One neighbour as a SMARTS branch, with its own other neighbours when `shell`."""
+    text = _bond(via) + _label(atom, detailed)
+    if shell:
+        others = sorted(_bond(b) + _label(b.GetOtherAtom(atom), False) for b in atom.GetBonds()
+                        if b.GetIdx() != via.GetIdx())
+        text += "".join(f"({o})" for o in others)
+    return text
+
+
+def atom_environments(mol: Chem.Mol) -> set[str]:
+    """SMARTS for each atom's surroundings, at several levels of detail.
+
+    Each is rooted at one atom (element, aromaticity, H count, degree, charge) and adds: its
+    neighbours one at a time (plain or detailed, or detailed with their own neighbours), or
+    all of them at once (plain, detailed, or detailed with their neighbours). The root's
+    degree fixes its neighbour count, so the all-neighbour forms describe the whole
+    surroundings. Equal surroundings give equal text.
+    """
+    out: set[str] = set()
+    for atom in mol.GetAtoms():
+        root = _label(atom, True)
+        out.add(root)
+        bonds = list(atom.GetBonds())
+        forms: dict[str, list[str]] = {"plain": [], "detailed": [], "shell": []}
+        for bond in bonds:
+            other = bond.GetOtherAtom(atom)
+            plain = _branch(other, bond, False, False)
+            detailed = _branch(other, bond, True, False)
+            shell = _branch(other, bond, True, True)
+            forms["plain"].append(plain)
+            forms["detailed"].append(detailed)
+            forms["shell"].append(shell)
+            out.update(root + f"({b})" for b in (plain, detailed, shell))
+        if bonds:
+            for branches in forms.values():
+                out.add(root + "".join(f"({b})" for b in sorted(branches)))
+    return out
+
+
+def environments_of(items: Sequence[str | Chem.Mol], limits: Limits = DEFAULT_LIMITS) -> list[set[str] | None]:
+    """`atom_environments` of each structure; None where it cannot be read."""
+    out: list[set[str] | None] = []
+    for item in items:
+        mol, _error = read_structure(item, limits)
+        out.append(atom_environments(mol) if mol is not None else None)
+    return out
+
+
+def common_substructure(items: Sequence[str | Chem.Mol], seconds: float, threshold: float = 1.0,
+                        limits: Limits = DEFAULT_LIMITS) -> str | None:
+    """SMARTS of a maximum common substructure of the structures (RDKit's FMCS), or None.
+
+    `threshold` is the fraction of structures it must occur in; the search stops after
+    `seconds` and returns the best found so far.
+    """
+    mols = [m for m in (read_structure(i, limits)[0] for i in items) if m is not None]
+    if len(mols) < 2:
+        return None
+    with captured_log():
+        result = rdFMCS.FindMCS(mols, timeout=max(1, int(seconds)), threshold=threshold,
+                                ringMatchesRingOnly=True, completeRingsOnly=True,
+                                atomCompare=rdFMCS.AtomCompare.CompareElements,
+                                bondCompare=rdFMCS.BondCompare.CompareOrder)
+    if result.numAtoms < 2 or not result.smartsString:
+        return None
+    return result.smartsString if is_valid_smarts(result.smartsString) else None

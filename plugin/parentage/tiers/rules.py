@@ -1,0 +1,497 @@
+"""The rule tier: curators' substructure rules, their meaning, and how well they fit.
+
+A rule names a class, a kind and conditions: `any_of` (at least one SMARTS matches),
+`all_of` (every one matches), `none_of` (none matches), and optionally `net_charge` (the
+structure's net formal charge is one of these), `has_elements` and `lacks_elements` (element
+symbols). A rule *holds* for a structure when every condition it gives holds.
+
+- defining: holds for every member, and holding implies membership;
+- necessary: holds for every member (of the class and of all its descendants);
+- sufficient: holding implies membership of the class and of its ancestors.
+
+A term's verdict for a class C that has rules: `opposes` when C is among the classes the term
+belongs to (asserted, or implied by a sufficient rule) and a necessary or defining rule of C
+fails; `supports` when a sufficient or defining rule of C holds, or when C is among the
+term's classes and its necessary rules hold. A class without rules that a holding sufficient
+rule implies (an ancestor of its class) is supported too, with `implied_by` in the evidence.
+No verdict otherwise ("no rule").
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any, NamedTuple
+
+import yaml
+
+from parentage.chem.smarts import (
+    DEFAULT_LIMITS,
+    ELEMENT_SYMBOLS,
+    Outcome,
+    Pattern,
+    compile_smarts,
+    match_many,
+)
+from parentage.config import Config, Limits
+from parentage.errors import ParentageError
+from parentage.snapshot import Ontology, read_structure
+from parentage.tiers import Verdict
+
+KINDS = ("defining", "necessary", "sufficient")
+SMARTS_KEYS = ("any_of", "all_of", "none_of")
+CONSTRAINT_KEYS = ("net_charge", "has_elements", "lacks_elements")
+KEYS = ("class", "kind", *SMARTS_KEYS, *CONSTRAINT_KEYS)
+_NECESSARY = ("defining", "necessary")
+_SUFFICIENT = ("defining", "sufficient")
+
+
+class RuleFileError(ParentageError):
+    """A rule file that cannot be used; the message names the first problem as file:line."""
+
+    def __init__(self, problems: Sequence[str]) -> None:
+        more = f" (and {len(problems) - 1} more problems)" if len(problems) > 1 else ""
+        super().__init__(problems[0] + more)
+        self.problems = tuple(problems)
+
+
+class Rule(NamedTuple):
+    cls: str
+    kind: str
+    any_of: tuple[str, ...] = ()
+    all_of: tuple[str, ...] = ()
+    none_of: tuple[str, ...] = ()
+    net_charge: tuple[int, ...] = ()  # allowed net charges; empty: any
+    has_elements: tuple[str, ...] = ()
+    lacks_elements: tuple[str, ...] = ()
+    path: str = ""
+    line: int = 0
+
+    @property
+    def where(self) -> str:
+        return f"{self.path}:{self.line}" if self.path else ""
+
+    @property
+    def smarts(self) -> tuple[str, ...]:
+        return self.any_of + self.all_of + self.none_of
+
+    def content(self) -> dict[str, Any]:
+        """What the rule says, without where it is written."""
+        data: dict[str, Any] = {"class": self.cls, "kind": self.kind}
+        for key in SMARTS_KEYS + CONSTRAINT_KEYS:
+            value = getattr(self, key)
+            if value:
+                data[key] = list(value)
+        return data
+
+
+class Holds(NamedTuple):
+    """Whether one rule holds for one structure, and why."""
+
+    holds: bool
+    smarts: tuple[str, ...] = ()  # the patterns that matched (holds) or that decided (fails)
+    atoms: tuple[tuple[int, ...], ...] = ()
+    reason: str = ""  # why it fails
+
+
+# -- loading ----------------------------------------------------------------------------------
+
+def _line(node: yaml.Node) -> int:
+    return node.start_mark.line + 1
+
+
+def _scalar(node: yaml.Node) -> Any:
+    if not isinstance(node, yaml.ScalarNode) or node.tag == "tag:yaml.org,2002:null":
+        return None
+    return yaml.safe_load(yaml.serialize(node))
+
+
+def _strings(node: yaml.Node) -> list[tuple[Any, yaml.Node]]:
+    if isinstance(node, yaml.SequenceNode):
+        return [(_scalar(item), item) for item in node.value]
+    return [(_scalar(node), node)]
+
+
+def _rule_from(path: str, node: yaml.Node, problems: list[str]) -> Rule | None:
+    where = f"{path}:{_line(node)}"
+    if not isinstance(node, yaml.MappingNode):
+        problems.append(f"{where}: each rule must be a mapping with 'class' and 'kind'")
+        return None
+    values: dict[str, Any] = {}
+    given: set[str] = set()
+    for knode, vnode in node.value:
+        key = _scalar(knode)
+        at = f"{path}:{_line(knode)}"
+        given.add(str(key))
+        if key not in KEYS:
+            problems.append(f"{at}: unknown key {key!r} (known: {', '.join(KEYS)})")
+            continue
+        if key in ("class", "kind"):
+            value = _scalar(vnode)
+            if not isinstance(value, str) or not value.strip():
+                problems.append(f"{at}: {key} must be a non-empty string")
+                continue
+            values[key] = value.strip()
+        elif key in SMARTS_KEYS:
+            texts = []
+            for text, item in _strings(vnode):
+                spot = f"{path}:{_line(item)}"
+                if not isinstance(text, str):
+                    problems.append(f"{spot}: {key} must list SMARTS strings")
+                    continue
+                try:
+                    compile_smarts(text)
+                except ParentageError as exc:
+                    problems.append(f"{spot}: {key}: {exc}")
+                    continue
+                texts.append(text)
+            values[key] = tuple(texts)
+        elif key == "net_charge":
+            charges = []
+            for value, item in _strings(vnode):
+                if not isinstance(value, int) or isinstance(value, bool):
+                    problems.append(f"{path}:{_line(item)}: net_charge must be an integer or a list of integers")
+                    continue
+                charges.append(value)
+            values[key] = tuple(charges)
+        else:
+            symbols = []
+            for value, item in _strings(vnode):
+                if value not in ELEMENT_SYMBOLS:
+                    problems.append(f"{path}:{_line(item)}: {key}: {value!r} is not an element symbol")
+                    continue
+                symbols.append(value)
+            values[key] = tuple(symbols)
+    for required in ("class", "kind"):
+        if required not in given:
+            problems.append(f"{where}: rule has no '{required}'")
+    kind = values.get("kind")
+    if kind is not None and kind not in KINDS:
+        problems.append(f"{where}: kind {kind!r} must be one of {', '.join(KINDS)}")
+        return None
+    if not any(values.get(k) for k in SMARTS_KEYS + CONSTRAINT_KEYS) and "class" in values:
+        problems.append(f"{where}: rule for {values['class']} gives no condition "
+                        f"(any of {', '.join(SMARTS_KEYS + CONSTRAINT_KEYS)})")
+        return None
+    if "class" not in values or kind is None:
+        return None
+    return Rule(values["class"], kind, *(values.get(k, ()) for k in SMARTS_KEYS + CONSTRAINT_KEYS),
+                path=path, line=_line(node))
+
+
+def parse_rule_file(path: str, text: str | bytes, problems: list[str]) -> list[Rule]:
+    """The rules of one file; problems (file:line: what) are appended to `problems`."""
+    if isinstance(text, bytes):
+        try:
+            text = text.decode("utf-8")
+        except UnicodeDecodeError as exc:
+            problems.append(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})")
+            return []
+    try:
+        root = yaml.compose(text, Loader=yaml.SafeLoader)
+    except yaml.YAMLError as exc:
+        mark = getattr(exc, "problem_mark", None)
+        line = f":{mark.line + 1}" if mark is not None else ""
+        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+        problems.append(f"{path}{line}: not valid YAML: {problem}")
+        return []
+    if root is None:
+        return []
+    if not isinstance(root, yaml.SequenceNode):
+        problems.append(f"{path}:{_line(root)}: a rule file is a list of rules")
+        return []
+    rules = []
+    for node in root.value:
+        rule = _rule_from(path, node, problems)
+        if rule is not None:
+            rules.append(rule)
+    return rules
+
+
+def load_rules(files: Iterable[tuple[str, str | bytes]], ontology: Ontology | None) -> tuple[RuleSet, list[str]]:
+    """(rules of every file, warnings). Bad SMARTS, unknown keys or bad values raise
+    RuleFileError; a rule whose class the ontology lacks (or has obsoleted) is dropped with a
+    warning, so a rule can be written before its class."""
+    problems: list[str] = []
+    rules: list[Rule] = []
+    for path, text in files:
+        rules += parse_rule_file(path, text, problems)
+    if problems:
+        raise RuleFileError(problems)
+    warnings: list[str] = []
+    kept = []
+    for rule in rules:
+        term = ontology.terms.get(rule.cls) if ontology is not None else None
+        if ontology is not None and term is None:
+            warnings.append(f"{rule.where}: class {rule.cls} is not in the ontology; rule ignored")
+        elif term is not None and term.obsolete:
+            warnings.append(f"{rule.where}: class {rule.cls} is obsolete; rule ignored")
+        else:
+            kept.append(rule)
+    return RuleSet(kept), warnings
+
+
+# -- evaluation -------------------------------------------------------------------------------
+
+_CACHE_LIMIT = 500_000  # (structure, SMARTS) results kept between calls, e.g. base and head
+
+
+class RuleSet:
+    """Compiled rules with a result cache per (structure text, SMARTS)."""
+
+    def __init__(self, rules: Iterable[Rule]) -> None:
+        self.rules = tuple(rules)
+        self.by_class: dict[str, tuple[int, ...]] = {}
+        for index, rule in enumerate(self.rules):
+            self.by_class[rule.cls] = self.by_class.get(rule.cls, ()) + (index,)
+        texts = list(dict.fromkeys(t for r in self.rules for t in r.smarts))
+        self.patterns: list[Pattern] = [compile_smarts(t) for t in texts]
+        self.pattern_of = {t: i for i, t in enumerate(texts)}
+        self._rule_patterns = [frozenset(self.pattern_of[t] for t in r.smarts) for r in self.rules]
+        self._parts = [tuple(tuple(self.pattern_of[t] for t in getattr(r, k)) for k in SMARTS_KEYS)
+                       for r in self.rules]
+        self.triggers = tuple(i for i, r in enumerate(self.rules) if r.kind in _SUFFICIENT)
+        self._cache: dict[tuple[Limits, str], Outcome] = {}
+
+    def __len__(self) -> int:
+        return len(self.rules)
+
+    def classes(self) -> list[str]:
+        return sorted(self.by_class)
+
+    def rules_for(self, cls: str) -> tuple[Rule, ...]:
+        return tuple(self.rules[i] for i in self.by_class.get(cls, ()))
+
+    def digest(self, cls: str) -> str:
+        """Changes when what the class's rules say changes (not when they move in a file)."""
+        contents = sorted(json.dumps(r.content(), sort_keys=True) for r in self.rules_for(cls))
+        return hashlib.sha256(json.dumps(contents).encode()).hexdigest()
+
+    # -- matching ---------------------------------------------------------------------------
+    def outcomes(self, structures: Sequence[Any], wanted_rules: Sequence[Iterable[int]],
+                 limits: Limits) -> list[Outcome]:
+        """Matches of the patterns of the wanted rules on each structure.
+
+        Results for SMILES texts are kept, so a structure seen before (at the other end of a
+        review, or by an earlier call) is only searched for patterns not yet tried.
+        """
+        results: list[Outcome | None] = [None] * len(structures)
+        todo: list[int] = []
+        need: list[set[int]] = []
+        for i, (item, rules) in enumerate(zip(structures, wanted_rules)):
+            wanted = set().union(*(self._rule_patterns[r] for r in rules))
+            hit = self._cache.get((limits, item)) if isinstance(item, str) else None
+            missing = wanted - hit.checked if hit is not None else wanted
+            if hit is not None and (hit.error is not None or not missing):
+                results[i] = hit
+            else:
+                todo.append(i)
+                need.append(missing)
+        if todo:
+            if len(self._cache) > _CACHE_LIMIT:
+                self._cache.clear()
+            fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits)
+            for i, outcome in zip(todo, fresh):
+                item = structures[i]
+                old = self._cache.get((limits, item)) if isinstance(item, str) else None
+                if old is not None and outcome.error is None:
+                    outcome = outcome._replace(matches={**old.matches, **outcome.matches},
+                                               checked=old.checked | outcome.checked)
+                if isinstance(item, str):
+                    self._cache[(limits, item)] = outcome
+                results[i] = outcome
+        return [r for r in results if r is not None]
+
+    def holds_quickly(self, index: int, outcome: Outcome) -> bool:
+        """`holds(index, outcome).holds`, without gathering the evidence."""
+        any_of, all_of, none_of = self._parts[index]
+        matches = outcome.matches
+        if any_of and not any(p in matches for p in any_of):
+            return False
+        if any(p not in matches for p in all_of) or any(p in matches for p in none_of):
+            return False
+        rule = self.rules[index]
+        if rule.net_charge and outcome.charge not in rule.net_charge:
+            return False
+        return all(e in outcome.elements for e in rule.has_elements) and \
+            not any(e in outcome.elements for e in rule.lacks_elements)
+
+    def holds(self, index: int, outcome: Outcome) -> Holds:
+        """Whether rule `index` holds, given the structure's matches."""
+        rule = self.rules[index]
+
+        def found(text: str) -> tuple[tuple[int, ...], ...]:
+            return outcome.matches.get(self.pattern_of[text], ())
+
+        smarts: list[str] = []
+        atoms: list[tuple[int, ...]] = []
+        if rule.any_of:
+            hits = [t for t in rule.any_of if found(t)]
+            if not hits:
+                return Holds(False, rule.any_of, (), "no any_of pattern matches")
+            smarts += hits
+            for t in hits:
+                atoms += found(t)
+        for text in rule.all_of:
+            if not found(text):
+                return Holds(False, (text,), (), "an all_of pattern does not match")
+            smarts.append(text)
+            atoms += found(text)
+        for text in rule.none_of:
+            if found(text):
+                return Holds(False, (text,), found(text), "a none_of pattern matches")
+        if rule.net_charge and outcome.charge not in rule.net_charge:
+            return Holds(False, (), (), f"net charge {outcome.charge} is not "
+                                        f"{' or '.join(str(c) for c in rule.net_charge)}")
+        for symbol in rule.has_elements:
+            if symbol not in outcome.elements:
+                return Holds(False, (), (), f"has no {symbol}")
+        for symbol in rule.lacks_elements:
+            if symbol in outcome.elements:
+                return Holds(False, (), (), f"has {symbol}")
+        return Holds(True, tuple(smarts), tuple(atoms))
+
+    # -- verdicts ---------------------------------------------------------------------------
+    def verdicts(self, ontology: Ontology, term_ids: Iterable[str], structures: Mapping[str, Any],
+                 limits: Limits = DEFAULT_LIMITS) -> dict[str, list[Verdict]]:
+        """Rule verdicts for each term that has a structure (SMILES text or molecule)."""
+        ids = [t for t in term_ids if t in structures]
+        lineage = {t: ontology.ancestors(t) for t in ids}
+        first = [set(self.triggers).union(*(self.by_class.get(c, ()) for c in lineage[t])) for t in ids]
+        items = [structures[t] for t in ids]
+        outcomes = self.outcomes(items, first, limits)
+        # Classes a holding sufficient rule implies may bring necessary rules not yet matched.
+        implied: dict[str, dict[str, int]] = {}  # term -> implied class -> the rule implying it
+        second: list[set[int]] = []
+        for t, outcome, done in zip(ids, outcomes, first):
+            found: dict[str, int] = {}
+            if outcome.error is None:
+                for r in self.triggers:
+                    if self.holds_quickly(r, outcome):
+                        cls = self.rules[r].cls
+                        found.setdefault(cls, r)
+                        for above in ontology.ancestors(cls):
+                            found.setdefault(above, r)
+            implied[t] = found
+            extra = {r for c in found for r in self.by_class.get(c, ())} - done
+            second.append(extra)
+        if any(second):
+            outcomes = self.outcomes(items, [a | b for a, b in zip(first, second)], limits)
+        return {t: self._judge(t, lineage[t], implied[t], outcome)
+                for t, outcome in zip(ids, outcomes)}
+
+    def _judge(self, term: str, lineage: frozenset[str], implied: Mapping[str, int],
+               outcome: Outcome) -> list[Verdict]:
+        if outcome.error is not None:
+            return [Verdict(term, "", "rule", "abstains", {"reason": outcome.error})]
+        out = []
+        for cls in sorted(lineage | set(implied)):
+            indices = self.by_class.get(cls, ())
+            if not indices:
+                if cls in implied:
+                    r = implied[cls]
+                    out.append(Verdict(term, cls, "rule", "supports",
+                                       {**self._evidence(r, self.holds(r, outcome)),
+                                        "implied_by": self.rules[r].cls}))
+                continue
+            results = [(i, self.holds_quickly(i, outcome)) for i in indices]
+            failed = [i for i, h in results if not h and self.rules[i].kind in _NECESSARY]
+            sufficient = [i for i, h in results if h and self.rules[i].kind in _SUFFICIENT]
+            necessary = [i for i, h in results if h and self.rules[i].kind == "necessary"]
+            chosen = (failed or sufficient or necessary or [None])[0]
+            if chosen is not None:
+                out.append(Verdict(term, cls, "rule", "opposes" if failed else "supports",
+                                   self._evidence(chosen, self.holds(chosen, outcome))))
+        return out
+
+    def _evidence(self, index: int, holds: Holds) -> dict[str, Any]:
+        rule = self.rules[index]
+        data: dict[str, Any] = {"rule": rule.where, "kind": rule.kind, "smarts": list(holds.smarts),
+                                "atoms": [list(a) for a in holds.atoms]}
+        if holds.reason:
+            data["reason"] = holds.reason
+        return data
+
+
+# -- agreement with the curation (`parentage rules test`) -------------------------------------
+
+class Agreement(NamedTuple):
+    """How one rule fits the asserted classification over every structured term."""
+
+    rule: Rule
+    members: int  # structured terms filed under the class
+    matched_inside: int
+    matched_outside: int
+    missed_inside: int
+    examples_outside: tuple[str, ...]
+    examples_missed: tuple[str, ...]
+
+    @property
+    def precision(self) -> float:
+        found = self.matched_inside + self.matched_outside
+        return self.matched_inside / found if found else 0.0
+
+    @property
+    def recall(self) -> float:
+        return self.matched_inside / self.members if self.members else 0.0
+
+    @property
+    def f1(self) -> float:
+        p, r = self.precision, self.recall
+        return 2 * p * r / (p + r) if p + r else 0.0
+
+    def to_json(self) -> dict[str, Any]:
+        return {"rule": self.rule.where, "class": self.rule.cls, "kind": self.rule.kind,
+                "members": self.members, "matched_inside": self.matched_inside,
+                "matched_outside": self.matched_outside, "missed_inside": self.missed_inside,
+                "precision": round(self.precision, 4), "recall": round(self.recall, 4),
+                "f1": round(self.f1, 4), "examples_outside": list(self.examples_outside),
+                "examples_missed": list(self.examples_missed)}
+
+
+class AgreementReport(NamedTuple):
+    revision: str
+    structured: int  # terms with a SMILES that were checked
+    unchecked: tuple[tuple[str, str], ...]  # (term, why): unreadable or over the time limit
+    rules: tuple[Agreement, ...]
+    warnings: tuple[str, ...] = ()
+
+
+def structured_terms(ontology: Ontology, config: Config) -> dict[str, str]:
+    """Live term id -> SMILES, for every term that has one."""
+    out = {}
+    for term in ontology.terms.values():
+        if term.obsolete:
+            continue
+        smiles = read_structure(term, config.structure).smiles
+        if smiles:
+            out[term.id] = smiles
+    return out
+
+
+def rule_agreement(ruleset: RuleSet, ontology: Ontology, config: Config, examples: int = 3,
+                   warnings: Sequence[str] = ()) -> AgreementReport:
+    """Every rule over every structured term, against the asserted classification."""
+    smiles = structured_terms(ontology, config)
+    ids = sorted(smiles)
+    everything = range(len(ruleset))
+    outcomes = ruleset.outcomes([smiles[t] for t in ids], [everything] * len(ids), config.limits)
+    unchecked = tuple((t, o.error) for t, o in zip(ids, outcomes) if o.error is not None)
+    good = [(t, o) for t, o in zip(ids, outcomes) if o.error is None]
+    lineage = {t: ontology.ancestors(t) for t, _ in good}
+    rows = []
+    for index, rule in enumerate(ruleset.rules):
+        inside_hit, outside_hit, inside_miss = [], [], []
+        for t, outcome in good:
+            inside = rule.cls in lineage[t]
+            hit = ruleset.holds_quickly(index, outcome)
+            if hit and inside:
+                inside_hit.append(t)
+            elif hit:
+                outside_hit.append(t)
+            elif inside:
+                inside_miss.append(t)
+        rows.append(Agreement(rule, len(inside_hit) + len(inside_miss), len(inside_hit),
+                              len(outside_hit), len(inside_miss), tuple(outside_hit[:examples]),
+                              tuple(inside_miss[:examples])))
+    return AgreementReport(ontology.revision, len(good), unchecked, tuple(rows), tuple(warnings))
