@@ -55,8 +55,9 @@ def disjoint_findings(ontology: Ontology, term_ids: Iterable[str]) -> list[Findi
     return out
 
 
-def _evidence(verdict: Verdict | None) -> dict[str, Any]:
-    return dict(verdict.evidence) if verdict is not None else {}
+def _evidence(**verdicts: Verdict | None) -> dict[str, Any]:
+    """Each speaking tier's evidence under its name; silent tiers are left out."""
+    return {tier: dict(v.evidence) for tier, v in verdicts.items() if v is not None}
 
 
 def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
@@ -86,7 +87,7 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
             finding("rule-violated", (cls,), ("rule",),
                     f"is filed under {_name(ontology, cls)} but fails its "
                     f"{rule.evidence.get('kind', '')} rule".replace("  ", " "),
-                    {"rule": _evidence(rule), "model": _evidence(model.get(cls))})
+                    _evidence(rule=rule, model=model.get(cls)))
     for cls in sorted(asserted):
         rule, guess = rules.get(cls), model.get(cls)
         if guess is None or guess.opinion != "opposes":
@@ -96,7 +97,7 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
                     f"is filed under {_name(ontology, cls)}, but no rule supports it and the "
                     f"model is confident it does not belong "
                     f"(p={guess.evidence.get('probability', 0):.2f})",
-                    {"model": _evidence(guess)})
+                    _evidence(model=guess))
     for cls in sorted(set(rules) | set(model)):
         rule, guess = rules.get(cls), model.get(cls)
         if rule is None or guess is None or rule.opinion == guess.opinion:
@@ -108,7 +109,7 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
                 f"{_name(ontology, cls)} but the model "
                 f"{'opposes' if guess.opinion == 'opposes' else 'supports'} it "
                 f"(p={guess.evidence.get('probability', 0):.2f}); the rule decides",
-                {"rule": _evidence(rule), "model": _evidence(guess)})
+                _evidence(rule=rule, model=guess))
     # Suggestions: supported, not implied, not forbidden.
     forbidden: set[str] = set()
     for cls in lineage | {tid}:
@@ -141,5 +142,5 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
         finding("parent-suggested", (cls,), tiers,
                 f"its structure supports the more specific class {_name(ontology, cls)} "
                 f"({' and '.join(tiers)}), which its parents do not imply",
-                {"rule": _evidence(rule), "model": _evidence(guess)})
+                _evidence(rule=rule, model=guess))
     return out
