@@ -145,7 +145,8 @@ def review(chosen: Settings, span: str, fmt: str, output: str) -> subprocess.Com
 def _json_values(text: str) -> list[Any]:
     """The JSON values in `text`: `gh api --paginate` prints one array per page, back to back."""
     decoder = json.JSONDecoder()
-    values, at = [], 0
+    values: list[Any] = []
+    at = 0
     while True:
         while at < len(text) and text[at].isspace():
             at += 1
