@@ -21,6 +21,10 @@ from typing import Any
 from parentage import __version__
 from parentage.errors import ParentageError
 
+# Bump when the layout of any stored value changes (a Term field, a model array...), so an
+# old cache is never read with a new layout even within one release.
+LAYOUT = 2
+
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS entry (
     namespace TEXT NOT NULL,
@@ -35,7 +39,7 @@ CREATE TABLE IF NOT EXISTS entry (
 class Store:
     """`get`/`put` JSON values and `get_bytes`/`put_bytes` blobs under (namespace, key)."""
 
-    def __init__(self, path: str | None, version: str = __version__) -> None:
+    def __init__(self, path: str | None, version: str = f"{__version__}+{LAYOUT}") -> None:
         self.path = path  # None: an in-memory store (nothing is kept)
         self.version = version
         self._lock = threading.Lock()

@@ -55,9 +55,13 @@ class Workspace:
         if cached is not None:
             return cached
         stored = self.store.get("snapshot", f"{version.blob}:{path}")
+        snap = None
         if stored is not None:
-            snap = Snapshot.from_json(stored)
-        else:
+            try:
+                snap = Snapshot.from_json(stored)
+            except (KeyError, TypeError, ValueError):
+                snap = None  # an entry of another layout: parse again and replace it
+        if snap is None:
             text = decode(version.data, path)
             snap = parse_ontology_text(text, path, version.blob, base)
             self.store.put("snapshot", f"{version.blob}:{path}", snap.to_json())

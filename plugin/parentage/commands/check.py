@@ -11,7 +11,7 @@ import sys
 from collections.abc import Sequence
 
 from parentage.changes import affected_terms, diff_ontologies
-from parentage.commands.common import emit, open_workspace, parser
+from parentage.commands.common import emit, files_not_ranges, open_workspace, parser
 from parentage.findings import compare, with_severity
 from parentage.report import text as text_report
 from parentage.review import _without, is_structured, key_index, structure_changed, structure_side
@@ -23,6 +23,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     p.add_argument("files", nargs="*", metavar="FILE", help="ontology files (default: all configured)")
     p.add_argument("--all", action="store_true", help="check every term, not only the changed ones")
     args = p.parse_args(argv)
+    files_not_ranges(args)
     if not (args.range or args.worktree):
         args.staged = True
     ws = open_workspace(args)

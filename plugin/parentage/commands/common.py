@@ -42,6 +42,16 @@ def sides(ws: Workspace, args: argparse.Namespace) -> tuple[Side, Side]:
     return ws.repo.resolve(args.range, staged=args.staged, worktree=args.worktree)
 
 
+def files_not_ranges(args: argparse.Namespace) -> None:
+    """`parentage check a.obo`: a first positional that names a file is a file, not a range."""
+    first = getattr(args, "range", None)
+    if first is None or ".." in first or not hasattr(args, "files"):
+        return
+    if first.endswith((".obo", ".json")) or os.path.exists(os.path.join(args.repo, first)):
+        args.files.insert(0, first)
+        args.range = None
+
+
 def emit(text: str, output: str | None) -> None:
     """Write a command's result to --output or stdout (front ends only)."""
     if not text.endswith("\n"):

@@ -4,7 +4,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 from parentage.changes import diff_ontologies
-from parentage.commands.common import emit, open_workspace, parser, sides
+from parentage.commands.common import emit, files_not_ranges, open_workspace, parser, sides
 from parentage.report import changes as render
 
 
@@ -12,6 +12,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     p = parser("diff", "List the terms a change added, removed, obsoleted or edited.")
     p.add_argument("files", nargs="*", metavar="FILE", help="only these ontology files")
     args = p.parse_args(argv)
+    files_not_ranges(args)
     ws = open_workspace(args)
     try:
         base_side, head_side = sides(ws, args)

@@ -5,7 +5,7 @@ import os
 import sys
 from collections.abc import Sequence
 
-from parentage.commands.common import emit, open_workspace, parser, sides
+from parentage.commands.common import emit, files_not_ranges, open_workspace, parser, sides
 from parentage.findings import blocking
 from parentage.review import run_review
 
@@ -19,6 +19,7 @@ def main(argv: Sequence[str] | None = None) -> int:
                    help="comma-separated finding kinds that block (overrides the config's fail_on)")
     p.add_argument("--no-model", action="store_true", help="skip the model tier")
     args = p.parse_args(argv)
+    files_not_ranges(args)
     ws = open_workspace(args)
     try:
         if args.fail_on is not None:
