@@ -483,6 +483,7 @@ def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequenc
             started = time.monotonic()
             # Time first, then index: the parent reads index then time, so it never pairs a
             # new index with an old start time.
+            progress[2] = 0.0  # reading
             progress[1] = started
             progress[0] = float(index)
             mol, facts, error = _prepare(items[index], limits, table.bond_types)
@@ -492,6 +493,7 @@ def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequenc
                 ready.append((index, mol, facts, time.monotonic() - started))
         ok = table.passing([r[2] for r in ready]) if ready and patterns else None
         for row, (index, mol, facts, spent) in enumerate(ready):
+            progress[2] = 1.0  # searching
             progress[1] = time.monotonic() - spent
             progress[0] = float(index)
             chosen = sorted(set(wanted[index]))
@@ -534,12 +536,12 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
     todo = list(range(len(items)))
     ctx = _fork_context()
     if ctx is None or not todo:  # pragma: no cover - no fork: in process, maxMatches only
-        _run(todo, items, patterns, wanted, limits, [0.0, 0.0],
+        _run(todo, items, patterns, wanted, limits, [0.0, 0.0, 0.0],
              lambda rows: results.update(_decode(r) for r in rows))
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
     while todo:
-        progress = ctx.RawArray("d", [-1.0, time.monotonic()])
+        progress = ctx.RawArray("d", [-1.0, time.monotonic(), 0.0])
         receiver, sender = ctx.Pipe(duplex=False)
         proc = ctx.Process(target=_worker, args=(todo, items, patterns, wanted, limits, progress, sender),
                            daemon=True)
@@ -569,7 +571,9 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
                     break
                 current, started = int(progress[0]), progress[1]
                 if current >= 0 and current not in results and time.monotonic() - started > bound:
-                    why = f"time limit: matching took longer than {bound:g} s (limits.rule_seconds)"
+                    doing = "searching it" if progress[2] else "reading the structure"
+                    why = (f"time limit: reading and searching one structure may take {bound:g} s "
+                           f"(limits.rule_seconds); stopped while {doing}")
                     stuck = (current, why)
         finally:
             if proc.is_alive():

@@ -1,0 +1,92 @@
+"""Bounded work: a hostile SMARTS on a 2,000-atom molecule stops at the configured time.
+
+The molecule is a ladder of 59 fused cyclobutane rings with a long carbon tail, 2,000 carbons
+in all (built with RDKit). Every ring in a ladder has an even size (the graph is bipartite;
+common practice in graph theory), so a SMARTS for a 25-membered ring of any atoms can never
+match, and a search walks an exponential number of paths before it gives up.
+"""
+from __future__ import annotations
+
+import time
+
+import pytest
+from rdkit import Chem
+
+from parentage.chem.smarts import compile_smarts, match_many
+from parentage.config import Limits
+from parentage.snapshot import Ontology, Snapshot, Term
+from parentage.tiers.rules import load_rules
+
+ATOMS = 2000
+RUNGS = 60
+BOUND = 2.0
+LIMITS = Limits(max_atoms=5000, max_structure_chars=200_000, rule_seconds=BOUND, max_matches=1000)
+ODD_RING = "*1" + "~*" * 24 + "1"
+
+
+def ladder_smiles(rungs: int = RUNGS, atoms: int = ATOMS) -> str:
+    """Two chains of `rungs` carbons joined at every position, then a tail up to `atoms`."""
+    mol = Chem.RWMol()
+    top = [mol.AddAtom(Chem.Atom(6)) for _ in range(rungs)]
+    bottom = [mol.AddAtom(Chem.Atom(6)) for _ in range(rungs)]
+    for i in range(rungs):
+        mol.AddBond(top[i], bottom[i], Chem.BondType.SINGLE)
+        if i:
+            mol.AddBond(top[i - 1], top[i], Chem.BondType.SINGLE)
+            mol.AddBond(bottom[i - 1], bottom[i], Chem.BondType.SINGLE)
+    last = top[-1]
+    for _ in range(atoms - 2 * rungs):
+        atom = mol.AddAtom(Chem.Atom(6))
+        mol.AddBond(last, atom, Chem.BondType.SINGLE)
+        last = atom
+    Chem.SanitizeMol(mol)
+    return Chem.MolToSmiles(mol, canonical=False)  # canonical ranking of a ladder is slow
+
+
+def test_ladder_is_the_molecule_described() -> None:
+    mol = Chem.MolFromSmiles(ladder_smiles())
+    assert mol.GetNumAtoms() == ATOMS
+    assert {len(r) for r in mol.GetRingInfo().AtomRings()} == {4}
+
+
+@pytest.mark.parametrize("smarts", [
+    pytest.param(ODD_RING, id="odd-ring"),
+    pytest.param(f"[$({ODD_RING})]", id="odd-ring-in-recursion"),
+])
+def test_hostile_smarts_stops_at_the_bound(smarts: str) -> None:
+    big = ladder_smiles()
+    patterns = [compile_smarts(smarts), compile_smarts("C")]
+    start = time.perf_counter()
+    # A plain molecule on each side of the hostile one still gets its answer.
+    outcomes = match_many(patterns, ["CCO", big, "c1ccccc1"], [[0, 1], [0], [0, 1]], LIMITS)
+    took = time.perf_counter() - start
+    assert outcomes[1].error is not None and outcomes[1].error.startswith("time limit")
+    assert outcomes[1].error.endswith("stopped while searching it")
+    assert outcomes[0].error is None and 1 in outcomes[0].matches and 0 not in outcomes[0].matches
+    assert outcomes[2].error is None and not outcomes[2].matches  # benzene: aromatic c, no C
+    assert took < BOUND + 3.0  # the bound plus starting the worker twice on a busy machine
+
+
+def test_rule_verdicts_abstain_past_the_bound() -> None:
+    big = ladder_smiles()
+    terms = [Term("X:1", "class"), Term("X:2", "ladder", ("X:1",), properties=(("smiles", big),)),
+             Term("X:3", "ethanol", ("X:1",), properties=(("smiles", "CCO"),))]
+    onto = Ontology("test", [Snapshot("x.obo", None, terms)])
+    text = f"- class: X:1\n  kind: necessary\n  none_of: ['{ODD_RING}']\n"
+    ruleset, _ = load_rules([("rules/x.yaml", text)], onto)
+    start = time.perf_counter()
+    verdicts = ruleset.verdicts(onto, ["X:2", "X:3"], {"X:2": big, "X:3": "CCO"}, LIMITS)
+    assert time.perf_counter() - start < BOUND + 3.0
+    [late] = verdicts["X:2"]
+    assert (late.cls, late.opinion) == ("", "abstains")
+    assert "limits.rule_seconds" in late.evidence["reason"]
+    assert [(v.cls, v.opinion) for v in verdicts["X:3"]] == [("X:1", "supports")]
+
+
+def test_match_count_is_bounded() -> None:
+    # Benzene has 12 matches of a six-atom ring walk; maxMatches caps what is kept.
+    patterns = [compile_smarts("c1ccccc1")]
+    [capped] = match_many(patterns, ["c1ccccc1"], [[0]], Limits(max_matches=1))
+    assert len(capped.matches[0]) == 1
+    [default] = match_many(patterns, ["c1ccc2ccccc2c1"], [[0]], Limits())
+    assert len(default.matches[0]) == 2  # naphthalene: two rings, matches unique by atom set
