@@ -74,14 +74,15 @@ def diff_ontologies(base: Ontology, head: Ontology,
     edited: list[str] = []
     fields: dict[str, tuple[str, ...]] = {}
     moved: dict[str, tuple[str, str]] = {}
-    for tid, new in new_terms.items():
-        old = old_terms.get(tid)
-        if old is None:
+    old_digest, new_digest = base.merged.digest_of, head.merged.digest_of
+    for tid in new_terms:
+        if tid not in old_terms:
             continue
         if base.path_of[tid] != head.path_of[tid]:
             moved[tid] = (base.path_of[tid], head.path_of[tid])
-        if old.digest == new.digest:
-            continue
+        if old_digest(tid) == new_digest(tid):
+            continue  # same stanza text: no need to decode either version
+        old, new = old_terms[tid], new_terms[tid]
         what = changed_fields(old, new, props)
         if not what:
             continue  # only layout or clause order changed

@@ -5,6 +5,7 @@ the private adapters `_obo.py` (fastobo) and `_obojson.py` (OBO Graphs JSON).
 """
 from __future__ import annotations
 
+import json
 from collections.abc import Iterable, Iterator, Mapping
 from functools import cached_property
 from typing import Any, NamedTuple
@@ -69,19 +70,85 @@ def read_structure(term: Term, mapping: Mapping[str, Iterable[str]]) -> Structur
     return Structure(**fields)
 
 
+# Fields of a Term kept in a stored row; id, parents, obsolete, line, end_line and digest are
+# columns beside the rows, so a warm load can diff and walk the hierarchy without decoding.
+_ROW_FIELDS = ("name", "relationships", "disjoint_from", "replaced_by", "consider", "synonyms",
+               "xrefs", "properties", "other", "content")
+
+
+def _tuples(value: Any) -> tuple[Any, ...]:
+    return tuple(tuple(v) if isinstance(v, list) else v for v in value)
+
+
+class TermTable(Mapping[str, Term]):
+    """id -> Term, decoding stored rows only when a term is asked for.
+
+    Cheap columns (parents, digest, obsolete flag, line) answer the questions a warm review
+    asks of every term; a full `Term` is built from its JSON row on first access.
+    """
+
+    def __init__(self, ids: list[str], parents: list[tuple[str, ...]], obsolete: list[bool],
+                 lines: list[tuple[int, int]], digests: list[str], rows: list[Any]) -> None:
+        self.ids = ids
+        self.parents = parents
+        self.obsolete = obsolete
+        self.lines = lines
+        self.digests = digests
+        self.rows = rows  # Term, or a JSON string of the _ROW_FIELDS
+        self.index = {tid: n for n, tid in enumerate(ids)}  # later duplicates win
+
+    @classmethod
+    def of(cls, terms: Iterable[Term]) -> TermTable:
+        chosen: dict[str, Term] = {}
+        for term in terms:
+            # A second stanza with the same id is kept as the later one; OBO merges them,
+            # but for review purposes the later text is what a curator last wrote.
+            chosen[term.id] = term
+        values = list(chosen.values())
+        return cls([t.id for t in values], [t.parents for t in values], [t.obsolete for t in values],
+                   [(t.line, t.end_line) for t in values], [t.digest for t in values], list(values))
+
+    def __getitem__(self, tid: str) -> Term:
+        n = self.index[tid]
+        row = self.rows[n]
+        if isinstance(row, Term):
+            return row
+        data = json.loads(row)
+        term = Term(tid, data[0], self.parents[n], _tuples(data[1]), tuple(data[2]), self.obsolete[n],
+                    tuple(data[3]), tuple(data[4]), _tuples(data[5]), tuple(data[6]),
+                    _tuples(data[7]), _tuples(data[8]), self.lines[n][0], self.lines[n][1],
+                    self.digests[n], data[9])
+        self.rows[n] = term
+        return term
+
+    def __iter__(self) -> Iterator[str]:
+        if len(self.index) == len(self.ids):
+            return iter(self.ids)
+        return iter(self.index)
+
+    def __len__(self) -> int:
+        return len(self.index)
+
+    def __contains__(self, tid: object) -> bool:
+        return tid in self.index
+
+    def row_of(self, tid: str) -> str:
+        """The stored JSON row of a term (its non-column fields)."""
+        row = self.rows[self.index[tid]]
+        if isinstance(row, Term):
+            return json.dumps([getattr(row, f) for f in _ROW_FIELDS], separators=(",", ":"))
+        return str(row)
+
+
 class Snapshot:
     """All terms of one ontology file at one revision; the hierarchy is computed lazily."""
 
-    def __init__(self, path: str, blob: str | None, terms: Iterable[Term],
+    def __init__(self, path: str, blob: str | None, terms: Iterable[Term] | TermTable,
                  header: tuple[tuple[str, str], ...] = ()) -> None:
         self.path = path
         self.blob = blob
         self.header = header
-        self.terms: dict[str, Term] = {}
-        for term in terms:
-            # A second stanza with the same id is kept as the later one; OBO merges them,
-            # but for review purposes the later text is what a curator last wrote.
-            self.terms[term.id] = term
+        self.terms: TermTable = terms if isinstance(terms, TermTable) else TermTable.of(terms)
         self._ancestors: dict[str, frozenset[str]] = {}
 
     def __len__(self) -> int:
@@ -93,12 +160,25 @@ class Snapshot:
     def get(self, term_id: str) -> Term | None:
         return self.terms.get(term_id)
 
+    def parents_of(self, term_id: str) -> tuple[str, ...]:
+        n = self.terms.index.get(term_id)
+        return self.terms.parents[n] if n is not None else ()
+
+    def digest_of(self, term_id: str) -> str | None:
+        n = self.terms.index.get(term_id)
+        return self.terms.digests[n] if n is not None else None
+
+    def is_obsolete(self, term_id: str) -> bool:
+        n = self.terms.index.get(term_id)
+        return n is not None and self.terms.obsolete[n]
+
     @cached_property
     def children(self) -> dict[str, tuple[str, ...]]:
         kids: dict[str, list[str]] = {}
-        for term in self.terms.values():
-            for parent in term.parents:
-                kids.setdefault(parent, []).append(term.id)
+        table = self.terms
+        for tid, n in table.index.items():
+            for parent in table.parents[n]:
+                kids.setdefault(parent, []).append(tid)
         return {k: tuple(v) for k, v in kids.items()}
 
     def ancestors(self, term_id: str) -> frozenset[str]:
@@ -108,16 +188,17 @@ class Snapshot:
             return known
         # Iterative depth-first walk; memoises every finished node. A node on a cycle sees
         # the cycle's members as ancestors (including possibly itself), which is what a
-        # cycle means; `hierarchy-cycle` is reported by the structure tier.
+        # cycle means; `hierarchy-cycle` is reported by the hierarchy checks.
         result: set[str] = set()
         stack = [term_id]
         seen = {term_id}
+        index, parents = self.terms.index, self.terms.parents
         while stack:
             current = stack.pop()
-            term = self.terms.get(current)
-            if term is None:
+            n = index.get(current)
+            if n is None:
                 continue
-            for parent in term.parents:
+            for parent in parents[n]:
                 result.add(parent)
                 done = self._ancestors.get(parent)
                 if done is not None:
@@ -148,25 +229,25 @@ class Snapshot:
                     yield term, clause, target
 
     def live(self) -> Iterator[Term]:
-        return (t for t in self.terms.values() if not t.obsolete)
+        table = self.terms
+        return (table[t] for t, n in table.index.items() if not table.obsolete[n])
 
     # -- serialisation for the store (JSON, never pickle) -------------------------------
     def to_json(self) -> dict[str, Any]:
+        table = self.terms
+        ids = list(table)
+        pos = [table.index[t] for t in ids]
         return {"path": self.path, "blob": self.blob, "header": list(self.header),
-                "terms": [list(t) for t in self.terms.values()]}
+                "ids": ids, "parents": [table.parents[n] for n in pos],
+                "obsolete": [table.obsolete[n] for n in pos],
+                "lines": [table.lines[n] for n in pos], "digests": [table.digests[n] for n in pos],
+                "rows": [table.row_of(t) for t in ids]}
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any]) -> Snapshot:
-        terms = []
-        for row in data["terms"]:
-            (tid, name, parents, rels, disj, obsolete, replaced, consider, syn, xrefs, props,
-             other, line, end_line, digest, content) = row
-            terms.append(Term(tid, name, tuple(parents), tuple(tuple(r) for r in rels),
-                              tuple(disj), obsolete, tuple(replaced), tuple(consider),
-                              tuple(tuple(s) for s in syn), tuple(xrefs),
-                              tuple(tuple(p) for p in props), tuple(tuple(o) for o in other),
-                              line, end_line, digest, content))
-        return cls(data["path"], data["blob"], terms, tuple(tuple(h) for h in data["header"]))
+        table = TermTable(data["ids"], [tuple(p) for p in data["parents"]], data["obsolete"],
+                          [tuple(x) for x in data["lines"]], data["digests"], list(data["rows"]))
+        return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]))
 
 
 class Ontology:
@@ -179,16 +260,22 @@ class Ontology:
     def __init__(self, revision: str, snapshots: Iterable[Snapshot]) -> None:
         self.revision = revision
         self.snapshots = tuple(snapshots)
-        merged: list[Term] = []
         self.path_of: dict[str, str] = {}
         for snap in self.snapshots:
-            for term in snap.terms.values():
-                merged.append(term)
-                self.path_of[term.id] = snap.path
-        self.merged = Snapshot("", None, merged)
+            for tid in snap.terms:
+                self.path_of[tid] = snap.path
+        if len(self.snapshots) == 1:
+            self.merged = self.snapshots[0]
+        else:
+            tables = [s.terms for s in self.snapshots]
+            rows = [(t, n) for t in tables for n in t.index.values()]
+            self.merged = Snapshot("", None, TermTable(
+                [t.ids[n] for t, n in rows], [t.parents[n] for t, n in rows],
+                [t.obsolete[n] for t, n in rows], [t.lines[n] for t, n in rows],
+                [t.digests[n] for t, n in rows], [t.rows[n] for t, n in rows]))
 
     @property
-    def terms(self) -> dict[str, Term]:
+    def terms(self) -> TermTable:
         return self.merged.terms
 
     @property
