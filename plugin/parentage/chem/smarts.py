@@ -595,56 +595,45 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
 _BOND_SYMBOL = {1: "-", 2: "=", 3: "#", 12: ":"}
 
 
-def _label(atom: Chem.Atom, detailed: bool) -> str:
-    parts = [f"#{atom.GetAtomicNum()}", "a" if atom.GetIsAromatic() else "A"]
-    if detailed:
-        charge = atom.GetFormalCharge()
-        parts += [f"H{atom.GetTotalNumHs()}", f"D{atom.GetDegree()}",
-                  f"+{charge}" if charge >= 0 else f"-{-charge}"]
-    return "[" + ";".join(parts) + "]"
-
-
-def _bond(bond: Chem.Bond) -> str:
-    return _BOND_SYMBOL.get(int(bond.GetBondType()), "~")
-
-
-def _branch(atom: Chem.Atom, via: Chem.Bond, detailed: bool, shell: bool) -> str:
-    """One neighbour as a SMARTS branch, with its own other neighbours when `shell`."""
-    text = _bond(via) + _label(atom, detailed)
-    if shell:
-        others = sorted(_bond(b) + _label(b.GetOtherAtom(atom), False) for b in atom.GetBonds()
-                        if b.GetIdx() != via.GetIdx())
-        text += "".join(f"({o})" for o in others)
-    return text
-
-
 def atom_environments(mol: Chem.Mol) -> set[str]:
     """SMARTS for each atom's surroundings, at several levels of detail.
 
-    Each is rooted at one atom (element, aromaticity, H count, degree, charge) and adds: its
-    neighbours one at a time (plain or detailed, or detailed with their own neighbours), or
-    all of them at once (plain, detailed, or detailed with their neighbours). The root's
-    degree fixes its neighbour count, so the all-neighbour forms describe the whole
-    surroundings. Equal surroundings give equal text.
+    Each is rooted at one atom, written in detail (element, aromaticity, H count, degree,
+    charge), and adds: one neighbour at a time (plain: element and aromaticity; detailed; or
+    detailed with its own other neighbours, plain), or all neighbours at once in each of
+    those forms. The root's degree fixes its neighbour count, so the all-neighbour forms
+    describe the whole surroundings. Equal surroundings give equal text.
     """
-    out: set[str] = set()
+    plain: list[str] = []
+    detailed: list[str] = []
     for atom in mol.GetAtoms():
-        root = _label(atom, True)
-        out.add(root)
-        bonds = list(atom.GetBonds())
-        forms: dict[str, list[str]] = {"plain": [], "detailed": [], "shell": []}
-        for bond in bonds:
-            other = bond.GetOtherAtom(atom)
-            plain = _branch(other, bond, False, False)
-            detailed = _branch(other, bond, True, False)
-            shell = _branch(other, bond, True, True)
-            forms["plain"].append(plain)
-            forms["detailed"].append(detailed)
-            forms["shell"].append(shell)
-            out.update(root + f"({b})" for b in (plain, detailed, shell))
-        if bonds:
-            for branches in forms.values():
-                out.add(root + "".join(f"({b})" for b in sorted(branches)))
+        z, aromatic = atom.GetAtomicNum(), "a" if atom.GetIsAromatic() else "A"
+        charge = atom.GetFormalCharge()
+        plain.append(f"[#{z};{aromatic}]")
+        detailed.append(f"[#{z};{aromatic};H{atom.GetTotalNumHs()};D{atom.GetDegree()};"
+                        f"{'+' if charge >= 0 else '-'}{abs(charge)}]")
+    links: list[list[tuple[str, int, int]]] = [[] for _ in plain]  # (bond symbol, other, bond)
+    for bond in mol.GetBonds():
+        i, j = bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()
+        symbol = _BOND_SYMBOL.get(int(bond.GetBondType()), "~")
+        index = bond.GetIdx()
+        links[i].append((symbol, j, index))
+        links[j].append((symbol, i, index))
+    out: set[str] = set()
+    for root, neighbours in enumerate(links):
+        head = detailed[root]
+        out.add(head)
+        forms: tuple[list[str], list[str], list[str]] = ([], [], [])
+        for symbol, other, via in neighbours:
+            beyond = sorted(f"({s}{plain[o]})" for s, o, b in links[other] if b != via)
+            branches = (symbol + plain[other], symbol + detailed[other],
+                        symbol + detailed[other] + "".join(beyond))
+            for form, branch in zip(forms, branches):
+                form.append(branch)
+                out.add(f"{head}({branch})")
+        if neighbours:
+            for form in forms:
+                out.add(head + "".join(f"({b})" for b in sorted(form)))
     return out
 
 

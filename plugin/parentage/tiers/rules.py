@@ -495,3 +495,230 @@ def rule_agreement(ruleset: RuleSet, ontology: Ontology, config: Config, example
                               len(outside_hit), len(inside_miss), tuple(outside_hit[:examples]),
                               tuple(inside_miss[:examples])))
     return AgreementReport(ontology.revision, len(good), unchecked, tuple(rows), tuple(warnings))
+
+
+# -- proposing rules (`parentage rules propose`) -------------------------------------------
+
+class Candidate(NamedTuple):
+    """A proposed rule and how it fits the ontology it was learned from."""
+
+    rule: Rule
+    source: str  # how it was found: "atom environments" or "common substructure"
+    members: int
+    matched_inside: int
+    matched_outside: int
+
+    @property
+    def precision(self) -> float:
+        found = self.matched_inside + self.matched_outside
+        return self.matched_inside / found if found else 0.0
+
+    @property
+    def recall(self) -> float:
+        return self.matched_inside / self.members if self.members else 0.0
+
+    @property
+    def f1(self) -> float:
+        p, r = self.precision, self.recall
+        return 2 * p * r / (p + r) if p + r else 0.0
+
+
+class Proposal(NamedTuple):
+    cls: str
+    name: str
+    members: int
+    candidates: tuple[Candidate, ...]  # best (by F1 on the ontology) first; may be empty
+    note: str = ""
+
+
+_MAX_ANY_OF = 8
+_MAX_NONE_OF = 3
+_MIN_GAIN = 0.002  # smallest F1 gain worth one more pattern
+_SHORTLIST = 300  # environments considered per class after the first ranking
+_MCS_SAMPLE = 12
+
+
+def _f1(tp: int, found: int, members: int) -> float:
+    return 2 * tp / (found + members) if found + members else 0.0
+
+
+def _learn(members: Any, masks: dict[str, Any], by_term: Sequence[set[str] | None],
+           deadline: float) -> tuple[list[str], list[str]]:
+    """Greedy any_of, then none_of, over environment masks, to the best F1 on the members."""
+    import time
+
+    import numpy as np
+
+    n_pos = int(members.sum())
+    counts: dict[str, int] = {}
+    for index in np.flatnonzero(members):
+        for env in by_term[index] or ():
+            counts[env] = counts.get(env, 0) + 1
+    least = max(2, int(0.02 * n_pos))
+    ranked = []
+    for env, tp in counts.items():
+        if tp >= least:
+            found = int(masks[env].sum())
+            ranked.append((_f1(tp, found, n_pos), tp / found, env))
+    ranked.sort(reverse=True)
+    shortlist = [env for _, _, env in ranked[:_SHORTLIST]]
+    chosen: list[str] = []
+    current = np.zeros_like(members)
+    best = 0.0
+    while len(chosen) < _MAX_ANY_OF and time.monotonic() < deadline:
+        scored = []
+        for env in shortlist:
+            if env in chosen:
+                continue
+            union = current | masks[env]
+            scored.append((_f1(int((union & members).sum()), int(union.sum()), n_pos), env))
+        if not scored:
+            break
+        score, env = max(scored)
+        if score < best + _MIN_GAIN:
+            break
+        chosen.append(env)
+        current = current | masks[env]
+        best = score
+    excluded: list[str] = []
+    while chosen and len(excluded) < _MAX_NONE_OF and time.monotonic() < deadline:
+        wrong = current & ~members
+        seen: dict[str, int] = {}
+        for index in np.flatnonzero(wrong):
+            for env in by_term[index] or ():
+                seen[env] = seen.get(env, 0) + 1
+        options = sorted(seen, key=seen.__getitem__, reverse=True)[:_SHORTLIST]
+        scored = []
+        for env in options:
+            kept = current & ~masks[env]
+            scored.append((_f1(int((kept & members).sum()), int(kept.sum()), n_pos), env))
+        if not scored:
+            break
+        score, env = max(scored)
+        if score < best + _MIN_GAIN:
+            break
+        excluded.append(env)
+        current = current & ~masks[env]
+        best = score
+    return chosen, excluded
+
+
+def _kind_for(candidate: Candidate) -> str:
+    if candidate.precision >= 0.95 and candidate.recall >= 0.95:
+        return "defining"
+    return "sufficient" if candidate.precision >= candidate.recall else "necessary"
+
+
+def propose_rules(ontology: Ontology, config: Config, ruleset: RuleSet | None = None,
+                  classes: Iterable[str] = (), seconds_per_class: float = 10.0,
+                  seed: int = 0) -> list[Proposal]:
+    """Candidate rules for classes with at least `model.min_members` structured members and
+    no rule (or for the named `classes`), learned from the ontology's own structures.
+
+    Two sources of candidates: atom environments frequent among the members and rare
+    outside (combined greedily into any_of / none_of lists), and a maximum common
+    substructure of a sample of members. Every candidate is then matched with RDKit over
+    all structured terms, and its figures are what that matching gives.
+    """
+    import random
+    import time
+
+    import numpy as np
+
+    from parentage.chem.smarts import common_substructure, environments_of
+
+    smiles = structured_terms(ontology, config)
+    ids = sorted(smiles)
+    named = list(dict.fromkeys(classes))
+    for cls in named:
+        if cls not in ontology.terms:
+            raise ParentageError(f"class {cls} is not in the ontology")
+    lineage = [ontology.ancestors(t) for t in ids]
+    member_count: dict[str, int] = {}
+    for above in lineage:
+        for cls in above:
+            member_count[cls] = member_count.get(cls, 0) + 1
+    ruled = set(ruleset.classes()) if ruleset is not None else set()
+    if named:
+        targets = named
+    else:
+        targets = sorted(c for c, n in member_count.items() if n >= config.model.min_members
+                         and c not in ruled and c in ontology.terms and not ontology.terms[c].obsolete)
+    if not targets:
+        return []
+    by_term = environments_of([smiles[t] for t in ids], config.limits)
+    postings: dict[str, list[int]] = {}
+    for index, envs in enumerate(by_term):
+        for env in envs or ():
+            postings.setdefault(env, []).append(index)
+    masks: dict[str, Any] = {}
+    for env, where in postings.items():
+        if len(where) >= 2:
+            mask = np.zeros(len(ids), dtype=bool)
+            mask[where] = True
+            masks[env] = mask
+    by_term = [{e for e in envs if e in masks} if envs is not None else None for envs in by_term]
+    rng = random.Random(seed)
+    drafts: list[tuple[str, str, Rule]] = []  # (class, source, rule without kind decided)
+    notes: dict[str, str] = {}
+    for cls in targets:
+        deadline = time.monotonic() + seconds_per_class
+        members = np.array([cls in above for above in lineage], dtype=bool)
+        if members.sum() < max(2, min(config.model.min_members, len(ids))) and cls not in named:
+            continue
+        if not members.any():
+            notes[cls] = "no structured members"
+            continue
+        any_of, none_of = _learn(members, masks, by_term, deadline)
+        if any_of:
+            drafts.append((cls, "atom environments", Rule(cls, "sufficient", tuple(any_of), (), tuple(none_of))))
+        left = deadline - time.monotonic()
+        member_ids = [ids[i] for i in np.flatnonzero(members)]
+        sample = rng.sample(member_ids, min(_MCS_SAMPLE, len(member_ids)))
+        if left >= 1.0:
+            common = common_substructure([smiles[t] for t in sample], min(left, 5.0), 0.8, config.limits)
+            if common:
+                drafts.append((cls, "common substructure", Rule(cls, "sufficient", (common,))))
+        if not any(d[0] == cls for d in drafts):
+            notes[cls] = "no pattern found that is frequent among the members"
+    scored = _score(drafts, ids, lineage, [smiles[t] for t in ids], config.limits)
+    out = []
+    for cls in targets:
+        mine = sorted((c for c in scored if c.rule.cls == cls), key=lambda c: -c.f1)
+        mine = [c._replace(rule=c.rule._replace(kind=_kind_for(c))) for c in mine]
+        term = ontology.terms.get(cls)
+        out.append(Proposal(cls, (term.name if term is not None else None) or "", member_count.get(cls, 0),
+                            tuple(mine), notes.get(cls, "")))
+    return out
+
+
+def _score(drafts: Sequence[tuple[str, str, Rule]], ids: Sequence[str], lineage: Sequence[frozenset[str]],
+           structures: Sequence[str], limits: Limits) -> list[Candidate]:
+    """Figures of each draft rule from RDKit matching over every structured term."""
+    if not drafts:
+        return []
+    ruleset = RuleSet(rule for _, _, rule in drafts)
+    # First the any_of patterns everywhere, then the none_of patterns where those matched.
+    any_patterns = sorted({ruleset.pattern_of[t] for r in ruleset.rules for t in r.any_of})
+    outcomes = match_many(ruleset.patterns, list(structures), [any_patterns] * len(structures), limits)
+    need: list[set[int]] = []
+    for outcome in outcomes:
+        extra: set[int] = set()
+        for rule in ruleset.rules:
+            if rule.none_of and any(ruleset.pattern_of[t] in outcome.matches for t in rule.any_of):
+                extra.update(ruleset.pattern_of[t] for t in rule.none_of)
+        need.append(extra)
+    if any(need):
+        more = match_many(ruleset.patterns, list(structures), need, limits)
+        outcomes = [o._replace(matches={**o.matches, **m.matches}) for o, m in zip(outcomes, more)]
+    out = []
+    for index, (cls, source, rule) in enumerate(drafts):
+        inside = outside = members = 0
+        for outcome, above in zip(outcomes, lineage):
+            member = cls in above
+            members += member
+            if outcome.error is None and ruleset.holds_quickly(index, outcome):
+                inside += member
+                outside += not member
+        out.append(Candidate(rule, source, members, inside, outside))
+    return out
