@@ -1,0 +1,139 @@
+"""Fingerprints for the model tier, from RDKit's generator API, cached in the store.
+
+A fingerprint here is the sorted array of set bit positions (uint32) of a folded count
+fingerprint: the model learns from presence, not counts (measured: presence scores higher on the
+functional-group benchmark, see tests/benchmarks/bench_model.py). Arrays are stored as raw bytes
+under `fp:<settings>`, keyed by the SMILES text as written: a hit then skips RDKit parsing, which
+costs about three times the fingerprint itself on this machine.
+"""
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Callable, Iterable, Sequence
+from typing import Any
+
+import numpy as np
+from rdkit import Chem
+from rdkit.Chem import rdFingerprintGenerator as generators
+
+from parentage.chem.molecules import captured_log, parse_smiles
+from parentage.config import Limits, ModelSettings
+from parentage.errors import ParentageError
+from parentage.store import Store
+
+DEFAULT_LIMITS = Limits()
+KINDS = ("morgan", "featmorgan", "atompair", "torsion")
+Bits = np.ndarray  # sorted uint32 bit positions
+
+
+def settings_key(settings: ModelSettings) -> str:
+    """What determines a fingerprint: kind, radius (where it applies) and size."""
+    radius = f"-r{settings.radius}" if settings.fingerprint in ("morgan", "featmorgan") else ""
+    return f"{settings.fingerprint}{radius}-s{settings.size}"
+
+
+def _generator(settings: ModelSettings) -> Any:
+    if settings.fingerprint not in KINDS:
+        raise ParentageError(f"model.fingerprint: unknown kind {settings.fingerprint!r} "
+                             f"(known: {', '.join(KINDS)})")
+    if not 64 <= settings.size <= 1 << 24:
+        raise ParentageError(f"model.size must be between 64 and {1 << 24}, not {settings.size}")
+    size = settings.size
+    if settings.fingerprint == "morgan":
+        return generators.GetMorganGenerator(radius=settings.radius, fpSize=size)
+    if settings.fingerprint == "featmorgan":
+        invariants = generators.GetMorganFeatureAtomInvGen()
+        return generators.GetMorganGenerator(radius=settings.radius, fpSize=size,
+                                             atomInvariantsGenerator=invariants)
+    if settings.fingerprint == "atompair":
+        return generators.GetAtomPairGenerator(fpSize=size)
+    return generators.GetTopologicalTorsionGenerator(fpSize=size)
+
+
+def _bits_of(generator: Any, mol: Chem.Mol) -> Bits:
+    found = generator.GetCountFingerprint(mol).GetNonzeroElements()
+    return np.array(sorted(found), dtype=np.uint32)
+
+
+def fingerprint_bits(smiles: Iterable[str], settings: ModelSettings,
+                     limits: Limits = DEFAULT_LIMITS) -> list[Bits | None]:
+    """Set bits of each structure; None where the SMILES is unreadable or over the limits."""
+    generator = _generator(settings)
+    out: list[Bits | None] = []
+    with captured_log():
+        for text in smiles:
+            mol, error, _ = parse_smiles(text, limits)
+            out.append(None if mol is None or error else _bits_of(generator, mol))
+    return out
+
+
+def _key(smiles: str) -> str:
+    # Long SMILES would bloat the index; a digest is as good a key.
+    return smiles if len(smiles) <= 200 else "sha256:" + hashlib.sha256(smiles.encode()).hexdigest()
+
+
+_UNREADABLE = b"\xff"  # an unreadable structure is remembered too, so it is not re-parsed
+
+
+def cached_bits(smiles: Sequence[str], settings: ModelSettings, store: Store,
+                limits: Limits = DEFAULT_LIMITS,
+                wrap: Callable[[Iterable[str]], Iterable[str]] | None = None) -> list[Bits | None]:
+    """`fingerprint_bits` through the store: each distinct SMILES is computed once.
+
+    `wrap` may decorate the iteration over structures still to compute (a progress bar).
+    """
+    namespace = "fp:" + settings_key(settings)
+    distinct = list(dict.fromkeys(smiles))
+    keys = {s: _key(s) for s in distinct}
+    known: dict[str, Bits | None] = {}
+    for text in distinct:
+        raw = store.get_bytes(namespace, keys[text])
+        if raw is not None:
+            known[text] = None if raw == _UNREADABLE else np.frombuffer(raw, dtype=np.uint32)
+    missing = [s for s in distinct if s not in known]
+    if missing:
+        todo: Iterable[str] = wrap(missing) if wrap is not None else missing
+        computed = fingerprint_bits(todo, settings, limits)
+        known.update(zip(missing, computed))
+        store.put_many_bytes(namespace, ((keys[s], _UNREADABLE if b is None else b.tobytes())
+                                         for s, b in zip(missing, computed)))
+    return [known[s] for s in smiles]
+
+
+def bit_atoms(smiles: str, settings: ModelSettings, bits: Iterable[int],
+              limits: Limits = DEFAULT_LIMITS) -> dict[int, list[int]]:
+    """For each wanted bit, the atoms (0-based indices) of the environments that set it.
+
+    Morgan bits name a centre atom and a radius; the atoms are that environment's atoms. Other
+    kinds report the atoms RDKit's AdditionalOutput assigns to each bit.
+    """
+    wanted = {int(b) for b in bits}
+    with captured_log():
+        mol, error, _ = parse_smiles(smiles, limits)
+        if mol is None or error:
+            return {}
+        generator = _generator(settings)
+        extra = generators.AdditionalOutput()
+        morgan = settings.fingerprint in ("morgan", "featmorgan")
+        if morgan:
+            extra.AllocateBitInfoMap()
+        else:
+            extra.AllocateAtomToBits()
+        generator.GetCountFingerprint(mol, additionalOutput=extra)
+        found: dict[int, set[int]] = {}
+        if morgan:
+            for bit, places in extra.GetBitInfoMap().items():
+                if bit not in wanted:
+                    continue
+                atoms = found.setdefault(bit, set())
+                for centre, radius in places:
+                    atoms.add(centre)
+                    for bond_idx in Chem.FindAtomEnvironmentOfRadiusN(mol, radius, centre):
+                        bond = mol.GetBondWithIdx(bond_idx)
+                        atoms.update((bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()))
+        else:
+            for atom, atom_bits in enumerate(extra.GetAtomToBits()):
+                for bit in atom_bits:
+                    if bit in wanted:
+                        found.setdefault(bit, set()).add(atom)
+    return {bit: sorted(atoms) for bit, atoms in found.items()}

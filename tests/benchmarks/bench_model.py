@@ -1,0 +1,208 @@
+"""Model tier figures: functional-group benchmark, injected errors, speed. Prints; asserts nothing.
+
+Truth: RDKit's shipped Functional_Group_Hierarchy.txt SMARTS matched by RDKit (tests/fgbench.py);
+members: RDKit's shipped NCI and PAINS molecules; 80/20 split with seed 0; classes with at least
+20 training members. The model never sees the SMARTS. The baseline (one-vs-rest logistic
+regression on Morgan radius-2 counts, 2048 bits, scikit-learn defaults) runs in the same process.
+
+Run: /tmp/venv/bin/python tests/benchmarks/bench_model.py [--quick]
+"""
+from __future__ import annotations
+
+import os
+import random
+import sys
+import tempfile
+import time
+from dataclasses import replace
+
+import numpy as np
+
+sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
+import fgbench
+from rdkit import Chem
+from rdkit.Chem import rdFingerprintGenerator
+from scipy import sparse
+from sklearn.linear_model import LogisticRegression
+from sklearn.multiclass import OneVsRestClassifier
+from test_model import flagged, ontology_of
+
+from parentage.config import Config, ModelSettings
+from parentage.store import Store
+from parentage.tiers.model import Model, model_key
+from parentage.tiers.model_train import train
+
+
+def score(model: Model, mols: list[fgbench.Molecule]) -> tuple[float, float, float]:
+    """(micro-F1, macro-F1, abstention) of the model tier against the SMARTS truth."""
+    out = model.predict({m.id: m.smiles for m in mols}, evidence=False)
+    classes = model.classes
+    y = np.array([[c in fgbench.true_classes(m.id) for c in classes] for m in mols])
+    p = np.zeros_like(y)
+    abstained = np.zeros(len(mols), dtype=bool)
+    for i, m in enumerate(mols):
+        verdicts = out[m.id]
+        if verdicts and verdicts[0].opinion == "abstains":
+            abstained[i] = True
+            continue
+        for v in verdicts:
+            if v.opinion == "supports" and v.cls in classes:
+                p[i, classes.index(v.cls)] = True
+    return (*f1s(y[~abstained], p[~abstained]), float(abstained.mean()))
+
+
+def f1s(y: np.ndarray, p: np.ndarray) -> tuple[float, float]:
+    tp, fp, fn = (y & p).sum(0), (~y & p).sum(0), (y & ~p).sum(0)
+    micro = 2 * tp.sum() / max(2 * tp.sum() + fp.sum() + fn.sum(), 1)
+    per = np.where(2 * tp + fp + fn > 0, 2 * tp / np.maximum(2 * tp + fp + fn, 1), 0.0)
+    return float(micro), float(per.mean())
+
+
+def baseline(train_mols: list, test_mols: list, classes: list[str]) -> tuple[float, float, float]:
+    gen = rdFingerprintGenerator.GetMorganGenerator(radius=2, fpSize=2048)
+
+    def counts(mols: list) -> sparse.csr_matrix:
+        rows = [gen.GetCountFingerprintAsNumPy(Chem.MolFromSmiles(m.smiles)) for m in mols]
+        return sparse.csr_matrix(np.vstack(rows).astype(np.float64))
+
+    ytr = np.array([[c in fgbench.true_classes(m.id) for c in classes] for m in train_mols])
+    yte = np.array([[c in fgbench.true_classes(m.id) for c in classes] for m in test_mols])
+    start = time.perf_counter()
+    clf = OneVsRestClassifier(LogisticRegression(max_iter=1000)).fit(counts(train_mols), ytr)
+    took = time.perf_counter() - start
+    return (*f1s(yte, clf.predict(counts(test_mols)).astype(bool)), took)
+
+
+def inject(mols: list, seed: int = 1) -> tuple[dict, dict, dict]:
+    """5% of members lose one true parent (filed under its parent), 5% gain a wrong one."""
+    rng = random.Random(seed)
+    parent_of = {g.id: g.parent for g in fgbench.groups()}
+    parents: dict[str, tuple[str, ...]] = {}
+    missing: dict[str, str] = {}
+    wrong: dict[str, str] = {}
+    order = list(mols)
+    rng.shuffle(order)
+    cut = len(mols) // 20
+    filed = [m for m in order if fgbench.true_classes(m.id)]
+    for m in filed[:cut]:
+        own = fgbench.most_specific(fgbench.true_classes(m.id))
+        lost = rng.choice(own)
+        parents[m.id] = tuple(sorted({*(p for p in own if p != lost), parent_of[lost]}))
+        missing[m.id] = lost
+    for m in [m for m in order if m.id not in parents][:cut]:
+        truth = fgbench.true_classes(m.id)
+        choices = [g.id for g in fgbench.groups() if g.id not in truth
+                   and not any(g.id in fgbench.ancestors_of(t) for t in truth)]
+        bad = rng.choice(choices)
+        parents[m.id] = tuple(sorted({*fgbench.most_specific(truth), bad} - {fgbench.ROOT}))
+        wrong[m.id] = bad
+    return parents, missing, wrong
+
+
+def analogues(mols: list, wanted: int) -> list[fgbench.Molecule]:
+    """Methyl analogues: a CH3 on each carbon with a hydrogen, in turn, until `wanted`."""
+    out = list(mols)
+    seen = {m.smiles for m in mols}
+    for m in mols:
+        mol = Chem.MolFromSmiles(m.smiles)
+        for atom in mol.GetAtoms():
+            if len(out) >= wanted:
+                return out
+            if atom.GetSymbol() != "C" or atom.GetTotalNumHs() == 0:
+                continue
+            rw = Chem.RWMol(mol)
+            new = rw.AddAtom(Chem.Atom(6))
+            rw.AddBond(atom.GetIdx(), new, Chem.BondType.SINGLE)
+            # An analogue that does not sanitise is skipped (RDKit reports a nonzero flag).
+            if Chem.SanitizeMol(rw, catchErrors=True) != Chem.SanitizeFlags.SANITIZE_NONE:
+                continue
+            smi = Chem.MolToSmiles(rw)
+            if smi not in seen:
+                seen.add(smi)
+                out.append(fgbench.Molecule(f"ANA:{len(out):07d}", smi, m.id))
+    return out
+
+
+def main() -> None:
+    quick = "--quick" in sys.argv
+    train_mols, test_mols = fgbench.split(seed=0)
+    if quick:
+        train_mols, test_mols = train_mols[:3000], test_mols[:600]
+    onto = ontology_of(train_mols)
+    print(f"functional-group benchmark: {len(train_mols)} training, {len(test_mols)} held-out members")
+    results = {}
+    for size in (2048, 16384):
+        config = replace(Config(), model=ModelSettings(size=size))
+        start = time.perf_counter()
+        model = train(onto, config, Store(None), revision="base")
+        took = time.perf_counter() - start
+        assert model is not None
+        micro, macro, abst = score(model, test_mols)
+        results[size] = model
+        print(f"  model tier, Morgan r2 bits {size:>5}: micro-F1 {micro:.4f}  macro-F1 {macro:.4f}  "
+              f"abstention {abst:.2%}  (train {took:.0f} s; {len(model.classes)} classes; "
+              f"out-of-fold micro {model.summary['micro_f1']}, macro {model.summary['macro_f1']})")
+    classes = results[16384].classes
+    micro, macro, took = baseline(train_mols, test_mols, classes)
+    print(f"  baseline one-vs-rest logistic regression, Morgan r2 counts 2048: micro-F1 {micro:.4f}  "
+          f"macro-F1 {macro:.4f}  (fit {took:.0f} s)")
+
+    # Injected errors, judged out-of-fold, as the review uses the model.
+    parents, missing, wrong = inject(train_mols)
+    noisy = ontology_of(train_mols, parents)
+    config = replace(Config(), model=ModelSettings(size=16384))
+    model = train(noisy, config, Store(None))
+    assert model is not None
+    out = model.predict({m.id: m.smiles for m in train_mols}, evidence=False)
+    found = flagged(model, noisy, out)
+    injected = {(t, c) for t, c in [*missing.items(), *wrong.items()] if c in model.classes}
+    hits = found & injected
+    print(f"injected errors ({len(missing)} missing parents, {len(wrong)} wrong parents; "
+          f"{len(injected)} on learnable classes): recall {len(hits) / len(injected):.3f}  "
+          f"precision {len(hits) / max(len(found), 1):.3f}  ({len(found)} flags)")
+    for name, group in (("missing", missing), ("wrong", wrong)):
+        part = {(t, c) for t, c in group.items() if c in model.classes}
+        print(f"  {name}: recall {len(part & found) / max(len(part), 1):.3f}")
+
+    # Speed: train on 50k members, then load and predict from the stored model.
+    big = analogues(list(fgbench.molecules()), 10_000 if quick else 50_000)
+    print(f"speed: {len(big)} members (shipped molecules plus methyl analogues); truth by SMARTS")
+    patterns = [(g.id, Chem.MolFromSmarts(g.smarts)) for g in fgbench.groups()]
+    labelled = []
+    parent_of = {g.id: g.parent for g in fgbench.groups()}
+    for m in big:
+        rd = Chem.MolFromSmiles(m.smiles)
+        hits_ = {gid for gid, patt in patterns if rd.HasSubstructMatch(patt)}
+        labelled.append((m, tuple(fgbench.most_specific(hits_)) if hits_ else (fgbench.ROOT,)))
+    del parent_of
+    big_onto = ontology_of([m for m, _ in labelled], {m.id: p for m, p in labelled}, blob="b" * 40)
+    with tempfile.TemporaryDirectory() as tmp:
+        store = Store(os.path.join(tmp, "store.sqlite"))
+        start = time.perf_counter()
+        model = train(big_onto, config, store, revision="big")
+        took = time.perf_counter() - start
+        assert model is not None
+        print(f"  train {len(model.member_ids)} members (fingerprints included): {took:.1f} s")
+        key = model_key(big_onto, config.model)
+        store.put_bytes("model", key, model.to_bytes())
+        start = time.perf_counter()
+        loaded = Model.from_bytes(store.get_bytes("model", key) or b"")
+        print(f"  load stored model: {time.perf_counter() - start:.3f} s")
+        for name, stored in (("50k model", loaded), ("benchmark model", results[16384])):
+            queries = {f"Q:{i}": m.smiles for i, m in enumerate(test_mols)}
+            start = time.perf_counter()
+            stored.predict(queries, store=store, evidence=False)  # fingerprints computed, stored
+            cold = time.perf_counter() - start
+            start = time.perf_counter()
+            stored.predict(queries, store=store, evidence=False)
+            warm = time.perf_counter() - start
+            start = time.perf_counter()
+            stored.predict(queries, store=store)
+            ev = time.perf_counter() - start
+            n = len(queries)
+            print(f"  predict, {name}: {n / cold:.0f}/s with fingerprinting, {n / warm:.0f}/s from "
+                  f"stored fingerprints, {n / ev:.0f}/s with atom evidence")
+
+
+if __name__ == "__main__":
+    main()
