@@ -142,7 +142,9 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
         unreadable = {f.term for f in sink if f.kind == "structure-unreadable"}
         smiles = {t: s for t, s in smiles.items() if t not in unreadable}
         rule_v = rules.verdicts(side_onto, list(smiles), smiles, config.limits)
-        model_v = model.predict(smiles) if model is not None else {}
+        model_v = (model.predict(smiles, store=ws.store,
+                                 asserted={t: side_onto.ancestors(t) for t in smiles})
+                   if model is not None else {})
         f1 = model.class_f1 if model is not None else {}
         for tid in smiles:
             sink.extend(arbitrate(side_onto, tid, rule_v.get(tid, []), model_v.get(tid, []),
