@@ -6,6 +6,8 @@ import sys
 import tempfile
 from collections.abc import Sequence
 from importlib import resources
+from pathlib import Path
+from typing import Any
 
 from parentage.commands.common import Parser
 from parentage.errors import ParentageError
@@ -16,7 +18,12 @@ BRANCH = "proposed-change"
 
 def fixture_files(scenario: str, side: str) -> dict[str, bytes]:
     """The files of a shipped scenario side (`base` or `head`), by repository path."""
-    root = resources.files("parentage._fixtures").joinpath(scenario, side)
+    try:
+        root: Any = resources.files("parentage._fixtures").joinpath(scenario, side)
+    except ModuleNotFoundError:
+        # An editable install maps the package but not always a data folder beside it: read
+        # the fixtures from the checkout itself.
+        root = Path(__file__).resolve().parents[3] / "fixtures" / scenario / side
     out: dict[str, bytes] = {}
 
     def walk(node, prefix: str) -> None:  # type: ignore[no-untyped-def]
