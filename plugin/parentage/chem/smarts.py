@@ -16,8 +16,10 @@ and a bounded maximum common substructure.
 """
 from __future__ import annotations
 
+import gc
 import json
 import multiprocessing
+import os
 import re
 import time
 from collections.abc import Callable, Iterable, Sequence
@@ -46,6 +48,8 @@ _BOND_PAIRS = {"SingleOrAromaticBond": frozenset({1, 12}), "SingleOrDoubleBond":
                "DoubleOrAromaticBond": frozenset({2, 12})}
 _MAX_RECURSION = 3  # nesting depth of $() whose needs are followed
 _CHUNK = 32  # structures read and screened together
+_SKELETON_SHARE = 2  # patterns that must share a skeleton before it is searched first
+_PARALLEL_FROM = 256  # structures from which the matching is split over several workers
 
 
 class _Node(NamedTuple):
@@ -118,16 +122,12 @@ def _bond_set(node: _Node) -> tuple[frozenset[int], bool]:
     return (_BOND_KEYS - exact, True) if _negated(node.label) else (exact, True)
 
 
-def _required_recursions(atom_smarts: str) -> list[str]:
-    """The `$(...)` parts of one atom's SMARTS that every match must satisfy.
-
-    Only a part that stands alone in a pure conjunction counts (not under `!`, not one of
-    several `,` alternatives); anything less plain is left out, which keeps the screen sound.
-    """
+def _atom_groups(atom_smarts: str) -> list[tuple[bool, list[str]]] | None:
+    """A bracket atom's SMARTS split at the lowest-precedence `;` into groups, each with
+    whether it is a plain conjunction (no `,`) and its `&`/`,`-separated parts."""
     if not (atom_smarts.startswith("[") and atom_smarts.endswith("]")):
-        return []
+        return None
     inner = atom_smarts[1:-1]
-    # Split at depth 0 into units and the operators between them.
     units: list[str] = []
     ops: list[str] = []
     depth, start = 0, 0
@@ -142,22 +142,70 @@ def _required_recursions(atom_smarts: str) -> list[str]:
             start = pos + 1
     units.append(inner[start:])
     if depth != 0:
-        return []
-    # Group by the lowest-precedence operator ';', then by ','.
-    groups: list[list[tuple[str, str]]] = [[]]  # each group: (unit, op before it)
+        return None
+    groups: list[tuple[bool, list[str]]] = [(True, [])]
     for index, unit in enumerate(units):
         before = ops[index - 1] if index else ""
         if before == ";":
-            groups.append([])
-        groups[-1].append((unit, before))
+            groups.append((True, []))
+        plain, parts = groups[-1]
+        groups[-1] = (plain and before != ",", parts + [unit])
+    return groups
+
+
+def _is_recursion(unit: str) -> bool:
+    body = unit.removeprefix("!")
+    return body.startswith("$(") and body.endswith(")") and _balanced(body[2:-1])
+
+
+def _required_recursions(atom_smarts: str) -> list[str]:
+    """The `$(...)` parts of one atom's SMARTS that every match must satisfy.
+
+    Only a part that stands alone in a plain conjunction counts (not under `!`, not one of
+    several `,` alternatives); anything less plain is left out, which keeps the screen sound.
+    """
     out = []
-    for group in groups:
-        if any(before == "," for _, before in group[1:]):
-            continue  # alternatives: no single part is required
-        for unit, _ in group:
-            if unit.startswith("$(") and unit.endswith(")") and _balanced(unit[2:-1]):
-                out.append(unit[2:-1])
+    for plain, parts in _atom_groups(atom_smarts) or ():
+        if plain:
+            out += [u[2:-1] for u in parts if u.startswith("$(") and _is_recursion(u)]
     return out
+
+
+def _without_recursions(atom_smarts: str) -> str:
+    """The atom's SMARTS with each `$(...)` / `!$(...)` conjunct dropped: a looser atom."""
+    groups = _atom_groups(atom_smarts)
+    if groups is None:
+        return atom_smarts
+    kept: list[str | None] = []
+    for plain, parts in groups:
+        if plain:
+            parts = [u for u in parts if not _is_recursion(u)]
+            if parts:
+                kept.append("&".join(parts))
+        else:
+            kept.append(None)
+    if None in kept:
+        return atom_smarts  # alternatives: rebuilding them is not worth the risk
+    return "[" + ";".join(k for k in kept if k) + "]" if any(kept) else "*"
+
+
+def skeleton_smarts(query: Chem.Mol) -> str | None:
+    """The pattern with recursive conjuncts dropped from its atoms, or None when that
+    changes nothing. It matches wherever the pattern does, usually far faster."""
+    rw = Chem.RWMol(query)
+    changed = False
+    for atom in query.GetAtoms():
+        if not atom.HasQuery():
+            continue
+        text = atom.GetSmarts()
+        looser = _without_recursions(text)
+        if looser != text:
+            replacement = Chem.AtomFromSmarts(looser)
+            if replacement is None:
+                return None
+            rw.ReplaceAtom(atom.GetIdx(), replacement)
+            changed = True
+    return Chem.MolToSmarts(rw) if changed else None
 
 
 def _balanced(text: str) -> bool:
@@ -214,17 +262,33 @@ def _screen(query: Chem.Mol, depth: int = 0) -> Screen:
     return Screen(query.GetNumAtoms(), tuple(atom_needs), tuple(bond_needs))
 
 
+def _useful_skeleton(query: Chem.Mol) -> str | None:
+    """`skeleton_smarts`, unless the screens already decide it (one atom of a plain type)."""
+    text = skeleton_smarts(query)
+    if text is None:
+        return None
+    loose = Chem.MolFromSmarts(text)
+    if loose is None:
+        return None
+    if loose.GetNumAtoms() == 1:
+        atom = loose.GetAtomWithIdx(0)
+        if not atom.HasQuery() or _atom_set(_describe_tree(atom.DescribeQuery()))[1]:
+            return None
+    return text
+
+
 # -- patterns ---------------------------------------------------------------------------------
 
 class Pattern:
     """One compiled SMARTS with its screen. Opaque outside this module."""
 
-    __slots__ = ("query", "screen", "text")
+    __slots__ = ("query", "screen", "skeleton", "text")
 
     def __init__(self, text: str, query: Chem.Mol, screen: Screen) -> None:
         self.text = text
         self.query = query
         self.screen = screen
+        self.skeleton = _useful_skeleton(query)
 
     def __repr__(self) -> str:
         return f"Pattern({self.text!r})"
@@ -380,6 +444,12 @@ class ScreenTable:
             self.atom_uses[a, p] = 1
             self.bond_uses[b, p] = 1
         self.sizes = np.array([p.screen.atoms for p in patterns], dtype=np.int32)
+        # Shared skeletons: one quick search that, when it fails, rules out several patterns.
+        texts = [p.skeleton for p in patterns]
+        shared = {t for t in texts if t is not None and texts.count(t) >= _SKELETON_SHARE}
+        order = sorted(shared)
+        self.skeletons = [Chem.MolFromSmarts(t) for t in order]
+        self.skeleton_of = [order.index(t) if t in shared else None for t in texts]
         # Bond types worth counting: those some need is made of alone.
         self.bond_types = tuple(sorted({k for keys, _ in bond_needs for k in keys
                                         if keys <= _BOND_QUERIES.keys()}))
@@ -407,9 +477,9 @@ def passes(pattern: Pattern, mol: Chem.Mol) -> bool:
 
 def _params(limits: Limits) -> Chem.SubstructMatchParameters:
     params = Chem.SubstructMatchParameters()
-    params.maxMatches = max(1, limits.max_matches)
-    params.uniquify = True
-    params.numThreads = 1
+    params.maxMatches = max(1, limits.max_matches)  # type: ignore[assignment]
+    params.uniquify = True  # type: ignore[assignment]  # RDKit's stubs mistype these
+    params.numThreads = 1  # type: ignore[assignment]
     return params
 
 
@@ -452,14 +522,22 @@ def _prepare(item: str | Chem.Mol, limits: Limits,
 
 
 def _matches(index: int, mol: Chem.Mol, facts: Facts, ok: Any, patterns: Sequence[Pattern],
-             chosen: list[int], params: Chem.SubstructMatchParameters) -> list[Any]:
+             table: ScreenTable, chosen: list[int], params: Chem.SubstructMatchParameters) -> list[Any]:
     found = []
+    skeletons: dict[int, bool] = {}
     try:
         for p in chosen:
-            if ok[p]:
-                hits = mol.GetSubstructMatches(patterns[p].query, params)
-                if hits:
-                    found.append([p, [list(h) for h in hits]])
+            if not ok[p]:
+                continue
+            s = table.skeleton_of[p]
+            if s is not None:
+                if s not in skeletons:
+                    skeletons[s] = mol.HasSubstructMatch(table.skeletons[s])
+                if not skeletons[s]:
+                    continue
+            hits = mol.GetSubstructMatches(patterns[p].query, params)
+            if hits:
+                found.append([p, [list(h) for h in hits]])
     except Exception as exc:  # noqa: BLE001 - reported for this structure only
         return [index, [], [], 0, [], f"matching failed: {type(exc).__name__}: {exc}"]
     return [index, found, chosen, facts.charge, sorted(facts.elements), None]
@@ -498,7 +576,7 @@ def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequenc
             progress[0] = float(index)
             chosen = sorted(set(wanted[index]))
             rows.append(_matches(index, mol, facts, ok[row] if ok is not None else (),
-                                 patterns, chosen, params))
+                                 patterns, table, chosen, params))
         send(rows)
 
 
@@ -510,6 +588,9 @@ def _decode(row: list[Any]) -> tuple[int, Outcome]:
 
 def _worker(todo: list[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
             wanted: Sequence[Iterable[int]], limits: Limits, progress: Any, conn: Any) -> None:
+    # The forked worker shares the parent's heap; a cyclic collection would walk (and so
+    # copy) all of it, and the worker's own garbage is freed by reference counting.
+    gc.disable()
     _run(todo, items, patterns, wanted, limits, progress,
          lambda rows: conn.send_bytes(json.dumps(rows).encode()))
     conn.send_bytes(json.dumps([None]).encode())
@@ -523,12 +604,87 @@ def _fork_context() -> Any:
         return None
 
 
+class _Lane:
+    """One worker process and the structures it still owes; restarted after a stuck one."""
+
+    def __init__(self, ctx: Any, todo: list[int], job: tuple[Any, ...], bound: float) -> None:
+        self.ctx, self.todo, self.job, self.bound = ctx, todo, job, bound
+        self.done = not todo
+        if todo:
+            self._start()
+
+    def _start(self) -> None:
+        self.progress = self.ctx.RawArray("d", [-1.0, time.monotonic(), 0.0])
+        self.receiver, sender = self.ctx.Pipe(duplex=False)
+        items, patterns, wanted, limits = self.job
+        self.proc = self.ctx.Process(target=_worker, daemon=True,
+                                     args=(self.todo, items, patterns, wanted, limits, self.progress, sender))
+        self.proc.start()
+        sender.close()
+
+    def handles(self) -> list[Any]:
+        return [] if self.done else [self.receiver, self.proc.sentinel]
+
+    def step(self, ready: Sequence[Any], results: dict[int, Outcome]) -> None:
+        """Take a message if one is waiting; otherwise see whether the worker is stuck or gone."""
+        if self.done:
+            return
+        finished = False
+        stuck: tuple[int, str] | None = None
+        if self.receiver in ready or self.receiver.poll():
+            try:
+                rows = json.loads(self.receiver.recv_bytes())
+            except (EOFError, OSError):
+                rows = [None]
+            for row in rows:
+                if row is None:
+                    finished = True
+                else:
+                    index, outcome = _decode(row)
+                    results[index] = outcome
+        elif self.proc.sentinel in ready:
+            stuck = (int(self.progress[0]), "matching failed: the matching process stopped unexpectedly")
+        else:
+            current, started = int(self.progress[0]), self.progress[1]
+            if current >= 0 and current not in results and time.monotonic() - started > self.bound:
+                doing = "searching it" if self.progress[2] else "reading the structure"
+                stuck = (current, (f"time limit: reading and searching one structure may take "
+                                  f"{self.bound:g} s (limits.rule_seconds); stopped while {doing}"))
+        if not finished and stuck is None:
+            return
+        self.stop()
+        if stuck is not None and stuck[0] >= 0 and stuck[0] not in results:
+            results[stuck[0]] = Outcome({}, frozenset(), error=stuck[1])
+        self.todo = [i for i in self.todo if i not in results]
+        if self.todo and stuck is None:  # pragma: no cover - ended without every result
+            for i in self.todo:
+                results[i] = Outcome({}, frozenset(), error="matching failed: no result")
+            self.todo = []
+        if self.todo:
+            self._start()
+        else:
+            self.done = True
+
+    def stop(self) -> None:
+        if self.proc.is_alive():
+            self.proc.kill()
+        self.proc.join()
+        self.receiver.close()
+
+
+def default_workers(structures: int) -> int:
+    """Worker processes for this many structures: one per CPU (at most 4), one for few."""
+    return 1 if structures < _PARALLEL_FROM else max(1, min(4, os.cpu_count() or 1))
+
+
 def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
-               wanted: Sequence[Iterable[int]], limits: Limits = DEFAULT_LIMITS) -> list[Outcome]:
+               wanted: Sequence[Iterable[int]], limits: Limits = DEFAULT_LIMITS,
+               workers: int | None = None) -> list[Outcome]:
     """For each structure (SMILES or molecule), the matches of the patterns `wanted[i]` names.
 
-    A structure whose parsing and matching together take longer than `limits.rule_seconds`
-    gets an Outcome with an error and no matches.
+    A structure whose reading and searching together take longer than `limits.rule_seconds`
+    gets an Outcome with an error and no matches. `workers` processes share the structures
+    (default: `default_workers`).
     """
     if len(items) != len(wanted):
         raise ValueError("one set of wanted patterns per structure")
@@ -540,53 +696,20 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
              lambda rows: results.update(_decode(r) for r in rows))
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
-    while todo:
-        progress = ctx.RawArray("d", [-1.0, time.monotonic(), 0.0])
-        receiver, sender = ctx.Pipe(duplex=False)
-        proc = ctx.Process(target=_worker, args=(todo, items, patterns, wanted, limits, progress, sender),
-                           daemon=True)
-        proc.start()
-        sender.close()
-        finished = False
-        stuck: tuple[int, str] | None = None
-        try:
-            while not finished and stuck is None:
-                ready = wait([receiver, proc.sentinel], timeout=min(0.05, bound / 4))
-                if receiver in ready:
-                    try:
-                        rows = json.loads(receiver.recv_bytes())
-                    except (EOFError, OSError):
-                        rows = None
-                    if rows is not None:
-                        for row in rows:
-                            if row is None:
-                                finished = True
-                            else:
-                                index, outcome = _decode(row)
-                                results[index] = outcome
-                        continue
-                if proc.sentinel in ready and not receiver.poll():
-                    current = int(progress[0])
-                    stuck = (current, "matching failed: the matching process stopped unexpectedly")
-                    break
-                current, started = int(progress[0]), progress[1]
-                if current >= 0 and current not in results and time.monotonic() - started > bound:
-                    doing = "searching it" if progress[2] else "reading the structure"
-                    why = (f"time limit: reading and searching one structure may take {bound:g} s "
-                           f"(limits.rule_seconds); stopped while {doing}")
-                    stuck = (current, why)
-        finally:
-            if proc.is_alive():
-                proc.kill()
-            proc.join()
-            receiver.close()
-        if stuck is not None and stuck[0] >= 0 and stuck[0] not in results:
-            results[stuck[0]] = Outcome({}, frozenset(), error=stuck[1])
-        todo = [i for i in todo if i not in results]
-        if stuck is None and todo:  # pragma: no cover - the worker ended without its results
-            for i in todo:
-                results[i] = Outcome({}, frozenset(), error="matching failed: no result")
-            todo = []
+    count = max(1, min(workers or default_workers(len(todo)), len(todo)))
+    size = -(-len(todo) // count)
+    job = (items, patterns, wanted, limits)
+    lanes = [_Lane(ctx, todo[k * size:(k + 1) * size], job, bound) for k in range(count)]
+    try:
+        while not all(lane.done for lane in lanes):
+            handles = [h for lane in lanes for h in lane.handles()]
+            ready = wait(handles, timeout=min(0.05, bound / 4))
+            for lane in lanes:
+                lane.step(ready, results)
+    finally:
+        for lane in lanes:
+            if not lane.done:
+                lane.stop()
     return [results[i] for i in range(len(items))]
 
 

@@ -175,7 +175,9 @@ def _rule_from(path: str, node: yaml.Node, problems: list[str]) -> Rule | None:
         return None
     if "class" not in values or kind is None:
         return None
-    return Rule(values["class"], kind, *(values.get(k, ()) for k in SMARTS_KEYS + CONSTRAINT_KEYS),
+    return Rule(values["class"], kind, any_of=values.get("any_of", ()), all_of=values.get("all_of", ()),
+                none_of=values.get("none_of", ()), net_charge=values.get("net_charge", ()),
+                has_elements=values.get("has_elements", ()), lacks_elements=values.get("lacks_elements", ()),
                 path=path, line=_line(node))
 
 
@@ -251,7 +253,18 @@ class RuleSet:
         self._parts = [tuple(tuple(self.pattern_of[t] for t in getattr(r, k)) for k in SMARTS_KEYS)
                        for r in self.rules]
         self.triggers = tuple(i for i, r in enumerate(self.rules) if r.kind in _SUFFICIENT)
+        # A trigger can only hold where one of its any_of / all_of patterns matched (or where
+        # it has none): the index spares checking every trigger on every structure.
+        self._trigger_by_pattern: dict[int, list[int]] = {}
+        self._unindexed: list[int] = []
+        for r in self.triggers:
+            positive = self._parts[r][0] + self._parts[r][1]
+            if not positive:
+                self._unindexed.append(r)
+            for pattern in set(positive):
+                self._trigger_by_pattern.setdefault(pattern, []).append(r)
         self._cache: dict[tuple[Limits, str], Outcome] = {}
+        self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
 
     def __len__(self) -> int:
         return len(self.rules)
@@ -277,9 +290,13 @@ class RuleSet:
         """
         results: list[Outcome | None] = [None] * len(structures)
         todo: list[int] = []
-        need: list[set[int]] = []
+        need: list[frozenset[int]] = []
+        pattern_sets: dict[frozenset[int], frozenset[int]] = {}  # most terms share their rules
         for i, (item, rules) in enumerate(zip(structures, wanted_rules)):
-            wanted = set().union(*(self._rule_patterns[r] for r in rules))
+            key = frozenset(rules)
+            wanted = pattern_sets.get(key)
+            if wanted is None:
+                wanted = pattern_sets[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
             hit = self._cache.get((limits, item)) if isinstance(item, str) else None
             missing = wanted - hit.checked if hit is not None else wanted
             if hit is not None and (hit.error is not None or not missing):
@@ -290,7 +307,7 @@ class RuleSet:
         if todo:
             if len(self._cache) > _CACHE_LIMIT:
                 self._cache.clear()
-            fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits)
+            fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits, self.workers)
             for i, outcome in zip(todo, fresh):
                 item = structures[i]
                 old = self._cache.get((limits, item)) if isinstance(item, str) else None
@@ -357,7 +374,12 @@ class RuleSet:
         """Rule verdicts for each term that has a structure (SMILES text or molecule)."""
         ids = [t for t in term_ids if t in structures]
         lineage = {t: ontology.ancestors(t) for t in ids}
-        first = [set(self.triggers).union(*(self.by_class.get(c, ()) for c in lineage[t])) for t in ids]
+        per_lineage: dict[frozenset[str], set[int]] = {}
+        for t in ids:
+            if lineage[t] not in per_lineage:
+                per_lineage[lineage[t]] = set(self.triggers).union(
+                    *(self.by_class.get(c, ()) for c in lineage[t]))
+        first = [per_lineage[lineage[t]] for t in ids]
         items = [structures[t] for t in ids]
         outcomes = self.outcomes(items, first, limits)
         # Classes a holding sufficient rule implies may bring necessary rules not yet matched.
@@ -366,7 +388,10 @@ class RuleSet:
         for t, outcome, done in zip(ids, outcomes, first):
             found: dict[str, int] = {}
             if outcome.error is None:
-                for r in self.triggers:
+                maybe = set(self._unindexed)
+                for pattern in outcome.matches:
+                    maybe.update(self._trigger_by_pattern.get(pattern, ()))
+                for r in sorted(maybe):
                     if self.holds_quickly(r, outcome):
                         cls = self.rules[r].cls
                         found.setdefault(cls, r)
@@ -398,8 +423,9 @@ class RuleSet:
             failed = [i for i, h in results if not h and self.rules[i].kind in _NECESSARY]
             sufficient = [i for i, h in results if h and self.rules[i].kind in _SUFFICIENT]
             necessary = [i for i, h in results if h and self.rules[i].kind == "necessary"]
-            chosen = (failed or sufficient or necessary or [None])[0]
-            if chosen is not None:
+            decided = failed or sufficient or necessary
+            if decided:
+                chosen = decided[0]
                 out.append(Verdict(term, cls, "rule", "opposes" if failed else "supports",
                                    self._evidence(chosen, self.holds(chosen, outcome))))
         return out
@@ -552,7 +578,7 @@ def _learn(members: Any, masks: dict[str, Any], by_term: Sequence[set[str] | Non
     n_pos = int(members.sum())
     counts: dict[str, int] = {}
     for index in np.flatnonzero(members):
-        for env in by_term[index] or ():
+        for env in by_term[int(index)] or ():
             counts[env] = counts.get(env, 0) + 1
     least = max(2, int(0.02 * n_pos))
     ranked = []
@@ -585,7 +611,7 @@ def _learn(members: Any, masks: dict[str, Any], by_term: Sequence[set[str] | Non
         wrong = current & ~members
         seen: dict[str, int] = {}
         for index in np.flatnonzero(wrong):
-            for env in by_term[index] or ():
+            for env in by_term[int(index)] or ():
                 seen[env] = seen.get(env, 0) + 1
         options = sorted(seen, key=seen.__getitem__, reverse=True)[:_SHORTLIST]
         scored = []
