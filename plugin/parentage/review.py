@@ -119,7 +119,10 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
     base_index = key_index(ws, base) if base.snapshots else {}
     others = _without(base_index, changed | set(affected))
     base_ids = [t for t in affected if t in base.terms and not base.terms[t].obsolete]
-    read = structure_changed(changes)
+    # The review re-reads every added or edited structure (a legacy problem of an edited term
+    # shows as persisting); members re-checked only because a class changed are not re-read.
+    touched = set(changes.added) | set(changes.edited)
+    read = [t for t in affected if t in touched]
     head_findings = structure_side(ws, head, affected, others, read)
     base_findings = structure_side(ws, base, base_ids, others, read)
 
@@ -147,8 +150,14 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
                    if model is not None else {})
         f1 = model.class_f1 if model is not None else {}
         for tid in smiles:
-            sink.extend(arbitrate(side_onto, tid, rule_v.get(tid, []), model_v.get(tid, []),
-                                  f1, config.model.min_f1, config.max_suggestions))
+            found = arbitrate(side_onto, tid, rule_v.get(tid, []), model_v.get(tid, []),
+                              f1, config.model.min_f1, config.max_suggestions)
+            sink.extend(found if tid in touched else [f for f in found if about_the_change(f)])
+    # A structure that became unreadable says nothing about the base's tier findings: they
+    # are not "resolved".
+    unreadable_now = {f.term for f in head_findings if f.kind == "structure-unreadable"}
+    base_findings = [f for f in base_findings
+                     if f.term not in unreadable_now or f.kind not in TIER_KINDS]
     findings = compare(_dedupe(base_findings), _dedupe(head_findings))
     findings = with_severity(findings, config.severity)
     findings.sort(key=_order)
@@ -165,6 +174,22 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
         affected=tuple(affected), findings=tuple(findings), names=names,
         fail_on=config.fail_on,
         model_revision=getattr(model, "revision", None), notes=tuple(notes))
+
+
+TIER_KINDS = frozenset({"rule-violated", "parent-unsupported", "tiers-disagree", "parent-suggested"})
+
+
+def about_the_change(finding: Finding) -> bool:
+    """Kept for a member re-checked only because a class or rule changed.
+
+    Such a member's own filing did not change, so model opinions about it (suggestions,
+    doubts) are not the change's business; broken rules and rule-backed suggestions are.
+    """
+    if finding.kind in ("parent-unsupported", "tiers-disagree"):
+        return False
+    if finding.kind == "parent-suggested":
+        return "rule" in finding.tiers
+    return True
 
 
 def _dedupe(findings: list[Finding]) -> list[Finding]:
