@@ -27,7 +27,7 @@ from rdkit import Chem, DataStructs, RDConfig, RDLogger
 from rdkit.Chem import Descriptors, inchi, rdFingerprintGenerator, rdMolDescriptors
 
 FIXTURES = Path(__file__).resolve().parent.parent / "fixtures"
-SCENARIOS = ("demo",)
+SCENARIOS = ("demo", "second")
 FIELDS = ("smiles", "inchi", "inchikey", "formula", "mass", "monoisotopic_mass", "charge")
 MASS_TOLERANCE = {"mass": 0.05, "monoisotopic_mass": 0.005}  # parentage's default tolerances
 
@@ -273,7 +273,8 @@ RULE_FREE_KINDS = ("structure-unreadable", "annotation-mismatch", "duplicate-str
 
 
 def changed_fields(before: TermInfo, after: TermInfo, config: Mapping[str, Any]) -> set[str]:
-    smiles_names = set(config["structure"]["smiles"])
+    """Field names of expected.yaml's `edits`; structure = any configured structure property."""
+    structure_names = {n for names in config["structure"].values() for n in names}
     out = set()
     pairs = {"parents": "parents", "relationships": "relationships", "name": "name",
              "synonyms": "synonyms", "disjointness": "disjoint"}
@@ -282,10 +283,13 @@ def changed_fields(before: TermInfo, after: TermInfo, config: Mapping[str, Any])
             out.add(fld)
     if (before.obsolete, before.replaced_by) != (after.obsolete, after.replaced_by):
         out.add("obsolescence")
-    if [p for p in before.props if p[0] in smiles_names] != [p for p in after.props if p[0] in smiles_names]:
+
+    def split(term: TermInfo, inside: bool) -> list[tuple[str, str]]:
+        return [p for p in term.props if (p[0] in structure_names) == inside]
+
+    if split(before, True) != split(after, True):
         out.add("structure")
-    if ([p for p in before.props if p[0] not in smiles_names] != [p for p in after.props if p[0] not in smiles_names]
-            or before.other != after.other):
+    if split(before, False) != split(after, False) or before.other != after.other:
         out.add("other")
     return out
 
