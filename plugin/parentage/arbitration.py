@@ -6,10 +6,10 @@ The rules, in order of authority:
 2. A model verdict counts only for classes whose cross-validated F1 reaches `model.min_f1`.
 3. `parent-unsupported`: an asserted parent that the trusted model is confidently against and
    that no rule supports (a rule that opposes is already `rule-violated`).
-4. `tiers-disagree`: a rule supports a class the trusted model is confidently against, or the
-   trusted model supports a class a rule opposes (the rule wins; the note says so).
+4. `tiers-disagree`: a rule supports a class the trusted model is confidently against (the
+   rule wins; the note says so). Where a rule says no, it has already decided.
 5. `parent-suggested`: the most specific classes that a sufficient/defining rule or the
-   trusted model supports, that the asserted parents do not already imply, that no rule
+   trusted model supports (a necessary rule that holds is no evidence), that the asserted parents do not already imply, that no rule
    opposes and that no disjointness axiom forbids — at most `max_suggestions`, rule-backed
    first, then by probability.
 """
@@ -60,6 +60,11 @@ def _evidence(**verdicts: Verdict | None) -> dict[str, Any]:
     return {tier: dict(v.evidence) for tier, v in verdicts.items() if v is not None}
 
 
+def _sufficient(verdict: Verdict) -> bool:
+    """A supporting rule verdict that implies the class (sufficient, defining, or implied)."""
+    return verdict.evidence.get("kind") in ("sufficient", "defining") or "implied_by" in verdict.evidence
+
+
 def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
               model_verdicts: Iterable[Verdict], class_f1: Mapping[str, float],
               min_f1: float, max_suggestions: int) -> list[Finding]:
@@ -98,16 +103,14 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
                     f"model is confident it does not belong "
                     f"(p={guess.evidence.get('probability', 0):.2f})",
                     _evidence(model=guess))
-    for cls in sorted(set(rules) | set(model)):
-        rule, guess = rules.get(cls), model.get(cls)
-        if rule is None or guess is None or rule.opinion == guess.opinion:
+    for cls in sorted(set(rules) & set(model)):
+        rule, guess = rules[cls], model[cls]
+        # Only a rule that says yes against a model that says no is worth a note: where a
+        # rule says no, the rule has already decided (rule-violated, or no suggestion).
+        if rule.opinion != "supports" or guess.opinion != "opposes":
             continue
-        if rule.opinion == "opposes" and cls in lineage:
-            continue  # already rule-violated; the rule decides
         finding("tiers-disagree", (cls,), ("rule", "model"),
-                f"the rule tier {'supports' if rule.opinion == 'supports' else 'opposes'} "
-                f"{_name(ontology, cls)} but the model "
-                f"{'opposes' if guess.opinion == 'opposes' else 'supports'} it "
+                f"the rule tier supports {_name(ontology, cls)} but the model opposes it "
                 f"(p={guess.evidence.get('probability', 0):.2f}); the rule decides",
                 _evidence(rule=rule, model=guess))
     # Suggestions: supported, not implied, not forbidden.
@@ -125,7 +128,8 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
         rule, guess = rules.get(cls), model.get(cls)
         if rule is not None and rule.opinion == "opposes":
             continue
-        rule_backed = rule is not None and rule.opinion == "supports"
+        # A necessary rule that holds is consistent with the class, not evidence for it.
+        rule_backed = rule is not None and rule.opinion == "supports" and _sufficient(rule)
         model_backed = guess is not None and guess.opinion == "supports"
         if rule_backed or model_backed:
             prob = float(guess.evidence.get("probability", 0.0)) if guess is not None else 0.0
@@ -138,7 +142,7 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
     for cls in specific[:max_suggestions]:
         rule, guess = rules.get(cls), model.get(cls)
         tiers = tuple(t for t, v in (("rule", rule), ("model", guess))
-                      if v is not None and v.opinion == "supports")
+                      if v is not None and v.opinion == "supports" and (t == "model" or _sufficient(v)))
         finding("parent-suggested", (cls,), tiers,
                 f"its structure supports the more specific class {_name(ontology, cls)} "
                 f"({' and '.join(tiers)}), which its parents do not imply",

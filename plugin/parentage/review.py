@@ -144,10 +144,14 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
         smiles = {t: s for t in live if (s := smiles_of(side_onto.terms[t], config))}
         unreadable = {f.term for f in sink if f.kind == "structure-unreadable"}
         smiles = {t: s for t, s in smiles.items() if t not in unreadable}
-        rule_v = rules.verdicts(side_onto, list(smiles), smiles, config.limits)
         model_v = (model.predict(smiles, store=ws.store,
                                  asserted={t: side_onto.ancestors(t) for t in smiles})
                    if model is not None else {})
+        # The rule tier also judges the classes the model proposes, so a defining or
+        # necessary rule those structures fail can overrule the proposal.
+        proposed = {t: [v.cls for v in vs if v.cls and v.opinion == "supports"]
+                    for t, vs in model_v.items()}
+        rule_v = rules.verdicts(side_onto, list(smiles), smiles, config.limits, also=proposed)
         f1 = model.class_f1 if model is not None else {}
         for tid in smiles:
             found = arbitrate(side_onto, tid, rule_v.get(tid, []), model_v.get(tid, []),

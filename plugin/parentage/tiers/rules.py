@@ -370,10 +370,20 @@ class RuleSet:
 
     # -- verdicts ---------------------------------------------------------------------------
     def verdicts(self, ontology: Ontology, term_ids: Iterable[str], structures: Mapping[str, Any],
-                 limits: Limits = DEFAULT_LIMITS) -> dict[str, list[Verdict]]:
-        """Rule verdicts for each term that has a structure (SMILES text or molecule)."""
+                 limits: Limits = DEFAULT_LIMITS,
+                 also: Mapping[str, Iterable[str]] | None = None) -> dict[str, list[Verdict]]:
+        """Rule verdicts for each term that has a structure (SMILES text or molecule).
+
+        Classes judged: the term's asserted ancestors, the classes a holding sufficient rule
+        implies, and `also[term]` with their ancestors (e.g. classes another tier proposes, so
+        that a defining rule that fails can say no).
+        """
         ids = [t for t in term_ids if t in structures]
         lineage = {t: ontology.ancestors(t) for t in ids}
+        for t, extra in (also or {}).items():
+            if t in lineage:
+                wanted = set(extra)
+                lineage[t] = lineage[t].union(wanted, *(ontology.ancestors(c) for c in wanted))
         per_lineage: dict[frozenset[str], set[int]] = {}
         for t in ids:
             if lineage[t] not in per_lineage:
