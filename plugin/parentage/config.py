@@ -69,9 +69,11 @@ def _where(path: str, node: yaml.Node, key: str) -> str:
     return f"{path}:{node.start_mark.line + 1}: {key}"
 
 
+_CONSTRUCT = yaml.SafeLoader("")  # PyYAML's own safe scalar construction, reused
+
+
 def _scalar(node: yaml.Node) -> Any:
-    # Reuse PyYAML's own tag resolution for one scalar.
-    return yaml.safe_load(yaml.serialize(node)) if node.tag != "tag:yaml.org,2002:null" else None
+    return _CONSTRUCT.construct_object(node) if node.tag != "tag:yaml.org,2002:null" else None
 
 
 def _expect_int(path: str, node: yaml.Node, key: str) -> int:

@@ -94,22 +94,20 @@ def structure_changed(changes: ChangeSet) -> list[str]:
     return list(changes.added) + [t for t in changes.edited if "structure" in changes.fields.get(t, ())]
 
 
-def _rules(ws: Workspace, side: Side, ontology: Ontology) -> tuple[Any, list[str]]:
-    from parentage.tiers.rules import load_rules
-
-    return load_rules(ws.rule_files(side), ontology)
-
-
 def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[str] = (),
                use_model: bool = True) -> Review:
     config = ws.config
     base, head = ws.pair(base_side, head_side, files)
     changes = diff_ontologies(base, head, config.structure)
     notes: list[str] = []
-    base_rules, base_warn = _rules(ws, base_side, base)
-    head_rules, head_warn = _rules(ws, head_side, head)
+    from parentage.tiers.rules import load_rules
+
+    base_files, head_files = ws.rule_files(base_side), ws.rule_files(head_side)
+    head_rules, head_warn = load_rules(head_files, head)
     notes += list(head_warn)
-    del base_warn  # the base's rule warnings were the base's business
+    # Rule files rarely change: the same text gives the same rules (the base's own warnings
+    # about missing classes were the base's business).
+    base_rules = head_rules if base_files == head_files else load_rules(base_files, base)[0]
     rule_changed = {c for c in set(base_rules.classes()) | set(head_rules.classes())
                     if base_rules.digest(c) != head_rules.digest(c)}
     affected = list(affected_terms(base, head, changes, rule_changed, is_structured(config)))

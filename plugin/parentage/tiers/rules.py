@@ -100,10 +100,13 @@ def _line(node: yaml.Node) -> int:
     return node.start_mark.line + 1
 
 
+_CONSTRUCT = yaml.SafeLoader("")  # PyYAML's own safe scalar construction, reused
+
+
 def _scalar(node: yaml.Node) -> Any:
     if not isinstance(node, yaml.ScalarNode) or node.tag == "tag:yaml.org,2002:null":
         return None
-    return yaml.safe_load(yaml.serialize(node))
+    return _CONSTRUCT.construct_object(node)
 
 
 def _strings(node: yaml.Node) -> list[tuple[Any, yaml.Node]]:
