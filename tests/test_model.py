@@ -18,6 +18,7 @@ sys.path.insert(0, os.path.dirname(__file__))
 import fgbench
 from rdkit import Chem
 
+from parentage.arbitration import arbitrate
 from parentage.config import Config, ModelSettings
 from parentage.snapshot import Ontology, Snapshot, Term
 from parentage.store import Store
@@ -181,8 +182,7 @@ def test_injected_errors_flagged_out_of_fold(subset: tuple) -> None:
     onto = ontology_of(mols, parents)
     trained = train(onto, CONFIG, Store(None))
     assert trained is not None
-    out = trained.predict({m.id: m.smiles for m in mols}, evidence=False)
-    found = flagged(trained, onto, out)
+    found = flagged(trained, onto, {m.id: m.smiles for m in mols})
     injected = {(t, c) for t, c in missing.items()} | {(t, c) for t, c in wrong.items()}
     injected = {(t, c) for t, c in injected if c in trained.classes}
     hits = found & injected
@@ -191,16 +191,22 @@ def test_injected_errors_flagged_out_of_fold(subset: tuple) -> None:
     assert recall >= 0.9 and precision >= 0.9, (recall, precision)  # the issue's target
 
 
-def flagged(model: Model, onto: Ontology, out: dict) -> set[tuple[str, str]]:
-    """(term, class) where the model contradicts the curation, as the review would report it."""
+def flagged(model: Model, onto: Ontology, term_smiles: dict[str, str],
+            config: Config = CONFIG) -> set[tuple[str, str]]:
+    """(term, class) where the model contradicts the curation, as the review reports it.
+
+    The verdicts are asked for as the review asks (each term's asserted classes, ancestors
+    included) and go through the review's own arbitration, so min_f1 trust and the verdict rules
+    are the review's: parent-unsupported and parent-suggested are the model's flags.
+    """
+    out = model.predict(term_smiles, asserted={t: onto.ancestors(t) for t in term_smiles},
+                        evidence=False)
     found = set()
     for tid, verdicts in out.items():
-        lineage = onto.ancestors(tid)
-        asserted = set(onto.terms[tid].parents)
-        for v in verdicts:
-            if v.opinion == "opposes" and v.cls in asserted or v.opinion == "supports" and v.evidence.get("specific") and v.cls not in lineage \
-                    and "probability" in v.evidence:
-                found.add((tid, v.cls))
+        for f in arbitrate(onto, tid, [], verdicts, model.class_f1, config.model.min_f1,
+                           config.max_suggestions):
+            if f.kind in ("parent-unsupported", "parent-suggested"):
+                found.update((tid, c) for c in f.classes)
     return found
 
 

@@ -25,7 +25,7 @@ from parentage.tiers import Verdict
 
 NAMESPACE = "model"
 LATEST = "model-latest"  # settings + paths -> key of the newest model, for reuse across commits
-FORMAT = 1
+FORMAT = 2
 
 
 class Member(NamedTuple):
@@ -81,87 +81,200 @@ def _sigmoid(x: np.ndarray) -> np.ndarray:
 class Neighbours:
     """Exact nearest reference member by Tanimoto similarity of bit sets, in numpy.
 
-    Intersections of common bits come from one dense matrix product; rare bits go through
-    posting lists. Measured on the functional-group benchmark this is several times faster than
-    one dense product over every bit, and exact.
+    The bits set in many members ("common") are packed into a few 64-bit words per member and
+    compared with popcounts; the other ("rare") bits go through posting lists. Only members
+    that share a rare bit with a query are scored. Any other member shares common bits only,
+    so its similarity is at most (the query's common bits) / (all its bits): where the best
+    scored member reaches that bound the answer is exact, and the few queries where it does
+    not are compared with every member's common words.
     """
 
-    def __init__(self, indptr: np.ndarray, bits: np.ndarray, folds: np.ndarray, size: int) -> None:
-        self.n = len(indptr) - 1
+    def __init__(self, arrays: Mapping[str, np.ndarray], size: int) -> None:
         self.size = size
-        self.folds = folds.astype(np.int16)
-        rows = np.repeat(np.arange(self.n, dtype=np.int64), np.diff(indptr))
-        self.counts = np.diff(indptr).astype(np.float32)
+        self.common_bits = arrays["nb_common_bits"].astype(np.int64)
+        self.common = arrays["nb_common"]  # (members, words) uint64
+        self.count = arrays["nb_count"].astype(np.int64)
+        self.post_ptr = arrays["nb_post_ptr"].astype(np.int64)
+        self.post_rows = arrays["nb_post_rows"].astype(np.int64)
+        self.folds = arrays["ref_fold"].astype(np.int64)
+        self.group_count = arrays["nb_group_count"].astype(np.int64)
+        self.group_common = arrays["nb_group_common"].astype(np.int64)
+        self.group_ptr = arrays["nb_group_ptr"].astype(np.int64)
+        self.group_rows = arrays["nb_group_rows"].astype(np.int64)
+        self.n = len(self.count)
+        self.common_pos = np.full(size, -1, dtype=np.int64)
+        self.common_pos[self.common_bits] = np.arange(len(self.common_bits))
+
+    @staticmethod
+    def index(indptr: np.ndarray, bits: np.ndarray, size: int, common_share: float = 0.02) -> dict[str, np.ndarray]:
+        """The stored search arrays of reference bit sets (CSR `indptr`, `bits`).
+
+        A bit set in more than `common_share` of the members (at least 64, at most 1024 bits)
+        is common: measured on the 50k-member speed benchmark this balances posting-list length
+        against queries that need the full comparison (tests/benchmarks/bench_model.py).
+        """
+        n = len(indptr) - 1
+        bits = bits.astype(np.int64)
         freq = np.bincount(bits, minlength=size)
-        # A bit set in more than ~1% of members is cheaper in the dense product.
-        dense = np.flatnonzero(freq > max(16, self.n // 100))
-        self.dense_pos = np.full(size, -1, dtype=np.int64)
-        self.dense_pos[dense] = np.arange(len(dense))
-        self.dense = np.zeros((self.n, len(dense)), dtype=np.float32)
-        is_dense = self.dense_pos[bits] >= 0
-        self.dense[rows[is_dense], self.dense_pos[bits[is_dense]]] = 1.0
-        rare_bits, rare_rows = bits[~is_dense], rows[~is_dense]
-        order = np.argsort(rare_bits, kind="stable")
-        self.post_rows = rare_rows[order]
-        self.post_ptr = np.zeros(size + 1, dtype=np.int64)
-        np.cumsum(np.bincount(rare_bits, minlength=size), out=self.post_ptr[1:])
+        order = np.argsort(-freq, kind="stable")
+        wanted = int(np.clip((freq > common_share * n).sum(), 64, 1024))
+        words = (wanted + 63) // 64
+        common_bits = np.sort(order[:words * 64])
+        pos = np.full(size, -1, dtype=np.int64)
+        pos[common_bits] = np.arange(len(common_bits))
+        rows = np.repeat(np.arange(n, dtype=np.int64), np.diff(indptr))
+        p = pos[bits]
+        dense = np.zeros((n, words * 64), dtype=bool)
+        dense[rows[p >= 0], p[p >= 0]] = True
+        packed = np.packbits(dense, axis=1, bitorder="little").view(np.uint64)
+        rare, rare_rows = bits[p < 0], rows[p < 0]
+        order_r = np.argsort(rare, kind="stable")
+        ptr = np.zeros(size + 1, dtype=np.int64)
+        np.cumsum(np.bincount(rare, minlength=size), out=ptr[1:])
+        count = np.diff(indptr).astype(np.int64)
+        n_common = np.bincount(rows[p >= 0], minlength=n)
+        # Members grouped by (bits, common bits): what bounds a member that shares no rare bit.
+        key = count * (words * 64 + 1) + n_common
+        groups, group_of = np.unique(key, return_inverse=True)
+        order_g = np.argsort(group_of, kind="stable")
+        gptr = np.zeros(len(groups) + 1, dtype=np.int64)
+        np.cumsum(np.bincount(group_of, minlength=len(groups)), out=gptr[1:])
+        return {"nb_common_bits": common_bits.astype(np.uint32), "nb_common": packed,
+                "nb_count": count.astype(np.int32), "nb_post_ptr": ptr,
+                "nb_post_rows": rare_rows[order_r].astype(np.int32),
+                "nb_group_count": (groups // (words * 64 + 1)).astype(np.int32),
+                "nb_group_common": (groups % (words * 64 + 1)).astype(np.int32),
+                "nb_group_ptr": gptr, "nb_group_rows": order_g.astype(np.int32)}
+
+    def _pack(self, owner: np.ndarray, pos: np.ndarray, q: int) -> np.ndarray:
+        dense = np.zeros((q, self.common.shape[1] * 64), dtype=bool)
+        dense[owner, pos] = True
+        return np.packbits(dense, axis=1, bitorder="little").view(np.uint64)
 
     def nearest(self, queries: Sequence[np.ndarray], folds: np.ndarray,
-                chunk: int = 512) -> tuple[np.ndarray, np.ndarray]:
+                chunk: int = 256) -> tuple[np.ndarray, np.ndarray]:
         """(index, similarity) of each query's nearest member, skipping members of its fold."""
         index = np.full(len(queries), -1, dtype=np.int64)
-        best = np.zeros(len(queries), dtype=np.float32)
+        best = np.zeros(len(queries), dtype=np.float64)
         if self.n == 0:
-            return index, best
+            return index, best.astype(np.float32)
         for start in range(0, len(queries), chunk):
             part = queries[start:start + chunk]
-            q = len(part)
-            lengths = np.array([len(b) for b in part], dtype=np.int64)
-            owner = np.repeat(np.arange(q), lengths)
-            flat = np.concatenate(part).astype(np.int64) if q else np.zeros(0, np.int64)
-            pos = self.dense_pos[flat]
-            qd = np.zeros((q, self.dense.shape[1]), dtype=np.float32)
-            qd[owner[pos >= 0], pos[pos >= 0]] = 1.0
-            inter = qd @ self.dense.T
-            rare, rare_owner = flat[pos < 0], owner[pos < 0]
-            starts, ends = self.post_ptr[rare], self.post_ptr[rare + 1]
-            n_post = ends - starts
-            if n_post.sum():
-                # Concatenated posting lists without a Python loop.
-                total = int(n_post.sum())
-                offsets = np.repeat(starts - np.cumsum(n_post) + n_post, n_post) + np.arange(total)
-                cells = np.repeat(rare_owner, n_post) * self.n + self.post_rows[offsets]
-                inter += np.bincount(cells, minlength=q * self.n).reshape(q, self.n).astype(np.float32)
-            # In place: these chunk-sized passes cost as much as the product itself.
-            union = np.add(self.counts[None, :], lengths[:, None].astype(np.float32))
-            union -= inter
-            np.maximum(union, 1.0, out=union)  # an empty pair has no intersection either
-            sims = np.divide(inter, union, out=inter)
-            qf = folds[start:start + q]
-            sims[(qf[:, None] >= 0) & (qf[:, None] == self.folds[None, :])] = -1.0
-            index[start:start + q] = np.argmax(sims, axis=1)
-            best[start:start + q] = np.max(sims, axis=1)
-        return index, np.maximum(best, 0.0)
+            i, s = self._nearest(part, np.asarray(folds[start:start + len(part)], dtype=np.int64))
+            index[start:start + len(part)], best[start:start + len(part)] = i, s
+        return index, np.maximum(best, 0.0).astype(np.float32)
+
+    def _nearest(self, part: Sequence[np.ndarray], qfold: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        q, n = len(part), self.n
+        lengths = np.array([len(b) for b in part], dtype=np.int64)
+        owner = np.repeat(np.arange(q), lengths)
+        flat = np.concatenate(part).astype(np.int64) if q else np.zeros(0, np.int64)
+        pos = self.common_pos[flat]
+        is_common = pos >= 0
+        qc = self._pack(owner[is_common], pos[is_common], q)
+        n_common = np.bincount(owner[is_common], minlength=q)
+        # Members sharing a rare bit: one code per (query, member) pair, counted by sorting.
+        rare, rare_owner = flat[~is_common], owner[~is_common]
+        starts = self.post_ptr[rare]
+        n_post = self.post_ptr[rare + 1] - starts
+        total = int(n_post.sum())
+        offsets = np.repeat(starts - np.cumsum(n_post) + n_post, n_post) + np.arange(total)
+        codes = np.repeat(rare_owner, n_post) * n + self.post_rows[offsets]
+        codes.sort()
+        edge = np.flatnonzero(np.diff(codes)) + 1 if total else np.zeros(0, np.int64)
+        firsts = np.concatenate(([0], edge)) if total else np.zeros(0, np.int64)
+        shared_rare = np.diff(np.append(firsts, total))
+        pair = codes[firsts]
+        p_owner, p_member = pair // n, pair % n
+        inter = shared_rare + self._popcount(qc[p_owner], self.common[p_member])
+        # Members sharing no rare bit score at most min(common bits) / union: those groups of
+        # members whose bound beats the best so far are compared on common words alone (a
+        # member that does share a rare bit is underrated there, and already scored exactly).
+        index, best = self._best(p_owner, p_member, inter, lengths, qfold, q)
+        worth = np.flatnonzero(n_common > best * np.maximum(lengths, 1))
+        if len(worth):
+            shared = np.minimum(n_common[worth][:, None], self.group_common[None, :])
+            bound = shared / np.maximum(lengths[worth][:, None] + self.group_count[None, :] - shared, 1)
+            qi, gi = np.nonzero(bound > best[worth][:, None])
+            size = self.group_ptr[gi + 1] - self.group_ptr[gi]
+            total = int(size.sum())
+            offsets = np.repeat(self.group_ptr[gi] - np.cumsum(size) + size, size) + np.arange(total)
+            extra_owner = np.repeat(worth[qi], size)  # sorted by query, as _best needs
+            extra_member = self.group_rows[offsets]
+            extra_inter = self._popcount(qc[extra_owner], self.common[extra_member])
+            more, better = self._best(extra_owner, extra_member, extra_inter, lengths, qfold, q)
+            won = better > best
+            index[won], best[won] = more[won], better[won]
+        return index, best
+
+    @staticmethod
+    def _popcount(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+        bits = np.bitwise_count(a & b)
+        out = bits[:, 0].astype(np.int64)
+        for w in range(1, bits.shape[1]):
+            out += bits[:, w]
+        return out
+
+    def _best(self, p_owner: np.ndarray, p_member: np.ndarray, inter: np.ndarray,
+              lengths: np.ndarray, qfold: np.ndarray, q: int) -> tuple[np.ndarray, np.ndarray]:
+        """(index, similarity) of each query's most similar member among scored pairs (sorted by query)."""
+        best = np.full(q, -1.0)
+        index = np.full(q, -1, dtype=np.int64)
+        if not len(p_owner):
+            return index, best
+        sims = inter / np.maximum(lengths[p_owner] + self.count[p_member] - inter, 1)
+        sims[(qfold[p_owner] >= 0) & (qfold[p_owner] == self.folds[p_member])] = -1.0
+        # Pairs come sorted by query: the maximum of each run, and the first pair that reaches it.
+        change = np.concatenate(([True], p_owner[1:] != p_owner[:-1]))
+        starts = np.flatnonzero(change)
+        run = np.cumsum(change) - 1
+        top = np.maximum.reduceat(sims, starts)
+        hits = np.flatnonzero(sims == top[run])
+        first = hits[np.concatenate(([True], run[hits][1:] != run[hits][:-1]))]
+        best[p_owner[starts]] = top
+        index[p_owner[first]] = p_member[first]
+        return index, best
 
 
 class Model:
-    """A trained model tier. Build with `from_bytes` or `model_train.train`."""
+    """A trained model tier. Build with `from_bytes` or `model_train.train`.
+
+    Arrays (never pickled): `weights` (models, size, classes) with model 0 the full one and
+    model f+1 the one that never saw fold f; `bias`, `platt` (a, b per class), `thresholds`,
+    `low` (at or below: opposes) and `high` (at or above: supports a class the curation does
+    not give the term); `member_ids` and `digests` as byte strings; `ref_fold`; and the
+    neighbour search arrays of `Neighbours.index`.
+    """
 
     def __init__(self, arrays: Mapping[str, np.ndarray], meta: Mapping[str, Any]) -> None:
         self.arrays = dict(arrays)
         self.meta = dict(meta)
         self.classes: list[str] = list(meta["classes"])
+        self._class_index = {c: j for j, c in enumerate(self.classes)}
         self.settings = ModelSettings(**meta["settings"])
         self.revision: str = meta["revision"]
-        self.member_ids: list[str] = list(meta["members"])
-        self.fold_of = {tid: int(f) for tid, f in zip(self.member_ids, self.arrays["ref_fold"])}
         figures = meta.get("figures", {})
         self.figures = {c: ClassFigures(*figures[c]) for c in figures}
         self.class_f1: dict[str, float] = {c: f.f1 for c, f in self.figures.items()}
         self.summary: dict[str, Any] = dict(meta.get("summary", {}))
-        self._ancestors: dict[str, frozenset[str]] = {c: frozenset(a) for c, a in meta["ancestors"].items()}
-        self._disjoint = [tuple(p) for p in meta["disjoint"]]
+        self._set_hierarchy({c: frozenset(a) for c, a in meta["ancestors"].items()},
+                            [(p[0], p[1]) for p in meta["disjoint"]])
         self._neighbours: Neighbours | None = None
+        self._member_ids: list[str] | None = None
+        self._fold_of: dict[str, int] | None = None
+
+    # Member ids are stored as one byte-string array: decoded only when asked.
+    @property
+    def member_ids(self) -> list[str]:
+        if self._member_ids is None:
+            self._member_ids = [b.decode() for b in self.arrays["member_ids"].tolist()]
+        return self._member_ids
+
+    @property
+    def fold_of(self) -> dict[str, int]:
+        if self._fold_of is None:
+            self._fold_of = dict(zip(self.member_ids, self.arrays["ref_fold"].tolist()))
+        return self._fold_of
 
     # -- storage: one .npz (arrays plus a JSON metadata array), never pickle -------------------
     def to_bytes(self) -> bytes:
@@ -184,15 +297,37 @@ class Model:
 
     def with_hierarchy(self, ontology: Ontology) -> Model:
         """Take ancestors and disjointness axioms from `ontology` (the classes must exist)."""
-        self._ancestors, self._disjoint = hierarchy_of(ontology, self.classes)
-        self.meta["ancestors"] = {c: sorted(a) for c, a in self._ancestors.items()}
-        self.meta["disjoint"] = [list(p) for p in self._disjoint]
+        ancestors, disjoint = hierarchy_of(ontology, self.classes)
+        self._set_hierarchy(ancestors, disjoint)
+        self.meta["ancestors"] = {c: sorted(a) for c, a in ancestors.items()}
+        self.meta["disjoint"] = [list(p) for p in disjoint]
         return self
+
+    def _set_hierarchy(self, ancestors: Mapping[str, frozenset[str]],
+                       disjoint: Sequence[tuple[str, str]]) -> None:
+        self._ancestors = dict(ancestors)
+        self._disjoint = list(disjoint)
+        # Known classes: the model's own first, then their ancestors; as matrices, so that
+        # closing predictions upward is one product for a whole batch.
+        known = list(self.classes)
+        known += sorted(set().union(*self._ancestors.values()) - set(known)) if self._ancestors else []
+        self._known = known
+        pos = {c: k for k, c in enumerate(known)}
+        self._up = np.zeros((len(self.classes), len(known)), dtype=np.float32)  # class -> itself + ancestors
+        for j, c in enumerate(self.classes):
+            self._up[j, j] = 1.0
+            for a in self._ancestors.get(c, ()):
+                self._up[j, pos[a]] = 1.0
+        self._strict_up = np.zeros((len(known), len(known)), dtype=np.float32)  # known -> ancestors
+        for c, anc in self._ancestors.items():
+            for a in anc:
+                self._strict_up[pos[c], pos[a]] = 1.0
+        self._disjoint_pos = [(pos[a], pos[b]) for a, b in self._disjoint if a in pos and b in pos]
 
     # -- staleness ----------------------------------------------------------------------------
     def changed_members(self, members: Sequence[Member]) -> int:
         """Structured terms added, removed or edited (structure or parents) since training."""
-        trained = dict(zip(self.member_ids, self.meta["digests"]))
+        trained = dict(zip(self.member_ids, (d.decode() for d in self.arrays["digests"].tolist())))
         excluded = set(self.meta.get("excluded", ()))
         now = {m.id: m.digest for m in members}
         changed = sum(1 for tid, d in now.items() if trained.get(tid) != d and tid not in excluded)
@@ -212,35 +347,40 @@ class Model:
         return self.changed_members(members) < config.model.retrain_after
 
     # -- scoring --------------------------------------------------------------------------------
-    def probabilities(self, bits: Sequence[np.ndarray], which: np.ndarray) -> np.ndarray:
+    def probabilities(self, bits: Sequence[np.ndarray], which: np.ndarray,
+                      chunk: int = 2048) -> np.ndarray:
         """Per-class probabilities; `which` picks the model (0 full, f+1 the fold-f model)."""
         weights, bias = self.arrays["weights"], self.arrays["bias"]
-        scores = np.zeros((len(bits), len(self.classes)), dtype=np.float32)
-        for model_index in np.unique(which):
-            rows = np.flatnonzero(which == model_index).tolist()
-            lengths = np.array([len(bits[r]) for r in rows])
-            flat = np.concatenate([bits[r] for r in rows]).astype(np.int64)
-            gathered = weights[model_index].T[flat]  # (bits, classes)
+        m, k = len(bits), len(self.classes)
+        which = np.asarray(which, dtype=np.int64)
+        scores = bias[which].astype(np.float32)
+        rows = weights.reshape(-1, k)
+        for start in range(0, m, chunk):
+            part = bits[start:start + chunk]
+            lengths = np.array([len(b) for b in part], dtype=np.int64)
+            if not lengths.sum():
+                continue
+            flat = np.concatenate(part).astype(np.int64)
+            models = np.repeat(which[start:start + len(part)], lengths)
+            # One gather of (bit, class) weight rows and one sum per query: no per-model pass.
+            gathered = rows[models * self.settings.size + flat]
             starts = np.concatenate(([0], np.cumsum(lengths)[:-1]))
-            sums = np.add.reduceat(gathered, np.minimum(starts, max(len(flat) - 1, 0)), axis=0) \
-                if len(flat) else np.zeros((len(rows), len(self.classes)), dtype=np.float32)
+            sums = np.add.reduceat(gathered, np.minimum(starts, len(flat) - 1), axis=0)
             sums[lengths == 0] = 0.0
-            scores[rows] = sums + bias[model_index]
+            scores[start:start + len(part)] += sums
         platt = self.arrays["platt"]
         return _sigmoid(scores * platt[:, 0] + platt[:, 1])
 
     def neighbours(self) -> Neighbours:
         if self._neighbours is None:
-            a = self.arrays
-            self._neighbours = Neighbours(a["ref_indptr"], a["ref_bits"].astype(np.int64),
-                                          a["ref_fold"], self.settings.size)
+            self._neighbours = Neighbours(self.arrays, self.settings.size)
         return self._neighbours
 
     def decide(self, probs: np.ndarray) -> tuple[set[str], set[str]]:
         """(classes closed upward and free of disjointness conflicts, the most specific of them)."""
         thresholds = self.arrays["thresholds"]
-        strength = {c: float(probs[j] / thresholds[j]) for j, c in enumerate(self.classes)
-                    if probs[j] >= thresholds[j]}
+        strength = {self.classes[j]: float(probs[j] / thresholds[j])
+                    for j in np.flatnonzero(probs >= thresholds).tolist()}
         while True:
             closed = set(strength)
             for c in strength:
@@ -260,21 +400,45 @@ class Model:
         """The strongest prediction that implies `cls`."""
         return max(s for c, s in strength.items() if c == cls or cls in self._ancestors.get(c, ()))
 
+    def _closed(self, probs: np.ndarray) -> np.ndarray:
+        """Per row, the known classes predicted (closed upward, disjointness resolved)."""
+        above = (probs >= self.arrays["thresholds"]).astype(np.float32)
+        closed = (above @ self._up) > 0
+        clash = np.zeros(len(probs), dtype=bool)
+        for a, b in self._disjoint_pos:
+            clash |= closed[:, a] & closed[:, b]
+        for r in np.flatnonzero(clash).tolist():  # rare: resolved one row at a time
+            kept, _ = self.decide(probs[r])
+            closed[r] = [c in kept for c in self._known]
+        return closed
+
     # -- the review's entry point ----------------------------------------------------------------
     def predict(self, term_smiles: Mapping[str, str], store: Store | None = None,
                 asserted: Mapping[str, Iterable[str]] | None = None,
                 evidence: bool = True) -> dict[str, list[Verdict]]:
         """Verdicts per term: supports (closed upward), opposes, or one term-wide abstention.
 
-        `opposes` is given for classes confidently below threshold: for the classes in
-        `asserted[term]` when given, for every model class otherwise.
+        With `asserted` (the classes the curation gives each term, ancestors included), a
+        term's verdicts are those a review acts on: `opposes` for its asserted classes whose
+        probability is at most the class's `low`, and `supports` for a class it is not filed
+        under only at a probability of at least the class's `high` (or for an ancestor of such
+        a class); its own classes are supported at the decision threshold. Without `asserted`
+        every predicted class is supported and every model class at or below `low` opposed.
+        With `evidence`, supporting verdicts that a review may report (every one, or with
+        `asserted` those outside the term's classes) carry the bits and atoms behind them.
         """
-        from parentage.chem.fingerprints import bit_atoms, cached_bits, fingerprint_bits
+        from parentage.chem.fingerprints import cached_bits, fingerprint_bits
 
         ids = list(term_smiles)
         smiles = [term_smiles[t] for t in ids]
         found = cached_bits(smiles, self.settings, store) if store is not None \
             else fingerprint_bits(smiles, self.settings)
+        return self.judge(ids, found, smiles, asserted, evidence)
+
+    def judge(self, ids: Sequence[str], found: Sequence[np.ndarray | None], smiles: Sequence[str],
+              asserted: Mapping[str, Iterable[str]] | None = None,
+              evidence: bool = True) -> dict[str, list[Verdict]]:
+        """`predict` from fingerprint bits (None: unreadable) already at hand."""
         out: dict[str, list[Verdict]] = {}
         readable = [i for i, b in enumerate(found) if b is not None]
         for i, tid in enumerate(ids):
@@ -283,73 +447,102 @@ class Model:
                                     {"reason": "the structure cannot be read"})]
         if not readable:
             return out
-        bits: list[np.ndarray] = [b for b in found if b is not None]
-        folds = np.array([self.fold_of.get(ids[i], -1) for i in readable], dtype=np.int64)
+        bits: list[np.ndarray] = [found[i] for i in readable]  # type: ignore[misc]
+        rids = [ids[i] for i in readable]
+        fold_of = self.fold_of
+        folds = np.array([fold_of.get(t, -1) for t in rids], dtype=np.int64)
         probs = self.probabilities(bits, folds + 1)
         near, sims = self.neighbours().nearest(bits, folds)
-        weights = self.arrays["weights"]
-        for row, i in enumerate(readable):
-            tid = ids[i]
-            wanted = None if asserted is None else set(asserted.get(tid, ()))
-            verdicts = self._judge(tid, probs[row], float(sims[row]),
-                                   self.member_ids[near[row]] if near[row] >= 0 else None, wanted)
-            if evidence and any(v.opinion == "supports" and "probability" in v.evidence for v in verdicts):
-                verdicts = self._with_bits(verdicts, smiles[i], bits[row],
-                                           weights[int(folds[row]) + 1], bit_atoms)
-            out[tid] = verdicts
-        return out
+        wanted = None if asserted is None else [set(asserted.get(t, ())) for t in rids]
+        rows = self.verdict_rows(rids, probs, sims, near, wanted)
+        if evidence:
+            from parentage.chem.fingerprints import bit_atoms
 
-    def _judge(self, tid: str, probs: np.ndarray, similarity: float, nearest: str | None,
-               wanted: set[str] | None) -> list[Verdict]:
-        thresholds, low = self.arrays["thresholds"], self.arrays["low"]
-        base = {"nearest": nearest, "similarity": round(similarity, 3)}
-        if similarity < self.settings.min_similarity:
-            return [Verdict(tid, "", "model", "abstains", {
-                "reason": f"unlike every training member: the nearest ({nearest}) has Tanimoto "
-                          f"similarity {similarity:.2f} < model.min_similarity "
-                          f"{self.settings.min_similarity}", **base})]
-        closed, specific = self.decide(probs)
-        index = {c: j for j, c in enumerate(self.classes)}
-        if not closed:
-            doubtful = [c for j, c in enumerate(self.classes) if low[j] < probs[j] < thresholds[j]
-                        and probs[j] >= 0.5 * thresholds[j]]
-            if doubtful:
-                return [Verdict(tid, "", "model", "abstains", {
-                    "reason": "no class is confident: " + ", ".join(
-                        f"{c} p={probs[index[c]]:.2f} < {thresholds[index[c]]:.2f}" for c in doubtful[:3]),
-                    "classes": doubtful, **base})]
-        out = []
-        for cls in sorted(closed, key=lambda c: (c not in specific, c)):
-            ev: dict[str, Any] = {"specific": cls in specific, **base}
-            if cls in index:
-                j = index[cls]
-                ev.update(probability=round(float(probs[j]), 4), threshold=round(float(thresholds[j]), 4))
-            else:
-                ev["implied_by"] = sorted(c for c in closed if cls in self._ancestors.get(c, ()))
-            out.append(Verdict(tid, cls, "model", "supports", ev))
-        against = np.flatnonzero(probs <= low)
-        for j in against.tolist():
-            cls = self.classes[j]
-            if cls in closed or (wanted is not None and cls not in wanted):
+            weights = self.arrays["weights"]
+            for r, verdicts in enumerate(rows):
+                reported = [v for v in verdicts if v.opinion == "supports" and "probability" in v.evidence
+                            and (wanted is None or v.cls not in wanted[r])]
+                if reported:
+                    rows[r] = self._with_bits(verdicts, {v.cls for v in reported}, smiles[readable[r]],
+                                              bits[r], weights[int(folds[r]) + 1], bit_atoms)
+        out.update(zip(rids, rows))
+        return {tid: out[tid] for tid in ids}
+
+    def verdict_rows(self, ids: Sequence[str], probs: np.ndarray, sims: np.ndarray, near: np.ndarray,
+                     wanted: Sequence[set[str]] | None) -> list[list[Verdict]]:
+        """Verdicts of each row of probabilities; decisions for the whole batch in numpy."""
+        thresholds, low, high = self.arrays["thresholds"], self.arrays["low"], self.arrays["high"]
+        classes, known, k = self.classes, self._known, len(self.classes)
+        closed = self._closed(probs)
+        doubtful = (probs > low) & (probs < thresholds) & (probs >= 0.5 * thresholds)
+        strong = np.zeros(closed.shape, dtype=bool)
+        strong[:, :k] = closed[:, :k] & (probs >= high)
+        # A class the curation does not give a term is supported only when it, or a class it is
+        # an ancestor of, is confidently predicted.
+        strong |= ((strong.astype(np.float32) @ self._strict_up) > 0) & closed
+        against = probs <= low
+        member_ids = self.member_ids
+        min_sim = self.settings.min_similarity
+        out: list[list[Verdict]] = []
+        rounded_p = np.round(probs.astype(np.float64), 4)
+        rounded_t = [round(float(t), 4) for t in thresholds]
+        for r, tid in enumerate(ids):
+            similarity = float(sims[r])
+            nearest = member_ids[int(near[r])] if near[r] >= 0 else None
+            base = {"nearest": nearest, "similarity": round(similarity, 3)}
+            if similarity < min_sim:
+                out.append([Verdict(tid, "", "model", "abstains", {
+                    "reason": f"unlike every training member: the nearest ({nearest}) has Tanimoto "
+                              f"similarity {similarity:.2f} < model.min_similarity {min_sim}", **base})])
                 continue
-            out.append(Verdict(tid, cls, "model", "opposes", {
-                "probability": float(probs[j]), "threshold": float(thresholds[j]), **base}))
+            mine = wanted[r] if wanted is not None else None
+            row = closed[r]
+            chosen = [known[c] for c in np.flatnonzero(row).tolist()]
+            if mine is not None:
+                keep = strong[r]
+                chosen = [c for c, kc in zip(chosen, np.flatnonzero(row).tolist())
+                          if c in mine or keep[kc]]
+            if not row.any() and doubtful[r].any():
+                unsure = [classes[j] for j in np.flatnonzero(doubtful[r]).tolist()]
+                out.append([Verdict(tid, "", "model", "abstains", {
+                    "reason": "no class is confident: " + ", ".join(
+                        f"{c} p={probs[r, self._class_index[c]]:.2f} < "
+                        f"{thresholds[self._class_index[c]]:.2f}" for c in unsure[:3]),
+                    "classes": unsure, **base})])
+                continue
+            chosen_set = set(chosen)
+            implied = {a for c in chosen for a in self._ancestors.get(c, ())}
+            verdicts = []
+            for cls in sorted(chosen, key=lambda c: (c in implied, c)):
+                ev: dict[str, Any] = {"specific": cls not in implied, **base}
+                j = self._class_index.get(cls)
+                if j is not None:
+                    ev.update(probability=float(rounded_p[r, j]), threshold=rounded_t[j])
+                else:
+                    ev["implied_by"] = sorted(c for c in chosen if cls in self._ancestors.get(c, ()))
+                verdicts.append(Verdict(tid, cls, "model", "supports", ev))
+            for j in np.flatnonzero(against[r]).tolist():
+                cls = classes[j]
+                if cls in chosen_set or (mine is not None and cls not in mine):
+                    continue
+                verdicts.append(Verdict(tid, cls, "model", "opposes", {
+                    "probability": float(probs[r, j]), "threshold": float(thresholds[j]),
+                    "low": float(low[j]), **base}))
+            out.append(verdicts)
         return out
 
-    def _with_bits(self, verdicts: list[Verdict], smiles: str, bits: np.ndarray, weights: np.ndarray,
-                   bit_atoms: Any) -> list[Verdict]:
-        """Add the bits that raised each supported class most, and the atoms that set them."""
-        index = {c: j for j, c in enumerate(self.classes)}
+    def _with_bits(self, verdicts: list[Verdict], wanted: set[str], smiles: str, bits: np.ndarray,
+                   weights: np.ndarray, bit_atoms: Any) -> list[Verdict]:
+        """Add the bits that raised each wanted class most, and the atoms that set them."""
         top: dict[str, list[int]] = {}
-        for v in verdicts:
-            if v.opinion == "supports" and v.cls in index:
-                w = weights[index[v.cls], bits.astype(np.int64)]
-                order = np.argsort(-w)[:3]
-                top[v.cls] = [int(bits[k]) for k in order if w[k] > 0]
+        for cls in wanted:
+            w = weights[bits.astype(np.int64), self._class_index[cls]]
+            order = np.argsort(-w)[:3]
+            top[cls] = [int(bits[k]) for k in order if w[k] > 0]
         atoms = bit_atoms(smiles, self.settings, {b for bs in top.values() for b in bs})
         return [v._replace(evidence={**v.evidence, "bits": top[v.cls],
                                      "atoms": [atoms.get(b, []) for b in top[v.cls]]})
-                if v.cls in top else v for v in verdicts]
+                if v.opinion == "supports" and v.cls in top else v for v in verdicts]
 
 
 def hierarchy_of(ontology: Ontology, classes: Iterable[str]) -> tuple[dict[str, frozenset[str]], list[tuple[str, str]]]:

@@ -28,13 +28,17 @@ from parentage.tiers.model import (
     ClassFigures,
     Member,
     Model,
+    Neighbours,
     eligible_classes,
     hierarchy_of,
     members_of,
 )
 
 T = TypeVar("T")
-LOW_FRACTION = 0.1  # measured on injected errors (bench_model.py)
+LOW_FRACTION = 0.1  # opposing needs at most a tenth of the threshold, too
+# Chosen on the injected-error benchmark among 0.005-0.05 and 0.7-0.9 (bench_model.py).
+OPPOSE_P = 0.01
+SUGGEST_P = 0.8
 EVAL_SAMPLE = 4000
 SVM_C = 0.5  # chosen on the functional-group benchmark among 0.1, 0.5, 1 (bench_model.py)
 
@@ -76,10 +80,9 @@ def platt(scores: np.ndarray, y: np.ndarray) -> np.ndarray:
     return out
 
 
-def best_thresholds(probs: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(threshold maximising F1, confident-negative cutoff) per class, from out-of-fold data."""
+def best_thresholds(probs: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(threshold maximising F1, opposing cutoff, suggesting cutoff) per class, out-of-fold."""
     thr = np.full(probs.shape[1], 0.5, dtype=np.float32)
-    low = np.zeros(probs.shape[1], dtype=np.float32)
     for j in range(probs.shape[1]):
         p, t = probs[:, j], y[:, j]
         order = np.argsort(-p, kind="stable")
@@ -92,10 +95,14 @@ def best_thresholds(probs: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.nd
         k = int(np.argmax(np.where(distinct, f1, -1)))
         nxt = ps[k + 1] if k + 1 < len(ps) else 0.0
         thr[j] = float(np.clip((ps[k] + nxt) / 2, 0.02, 0.98))
-        # "Confidently against": a tenth of the threshold. A quantile of the members' scores
-        # would sink to zero as soon as a few members are misfiled, which is what we look for.
-        low[j] = max(thr[j] * LOW_FRACTION, 1e-4)
-    return thr, low
+    # Contradicting the curation needs more than the decision threshold. The probabilities are
+    # Platt-calibrated on out-of-fold scores, so a cutoff reads as a rate: at p <= OPPOSE_P at
+    # most one term in a hundred with that score was filed under the class, at p >= SUGGEST_P
+    # at least four in five were. A quantile of the members' own scores would sink to zero as
+    # soon as a few members are misfiled, which is what we look for.
+    low = np.maximum(np.minimum(OPPOSE_P, thr * LOW_FRACTION), 1e-4).astype(np.float32)
+    high = np.maximum(SUGGEST_P, thr).astype(np.float32)
+    return thr, low, high
 
 
 def _wrap(enabled: bool | None, desc: str, total: int) -> Any:
@@ -122,32 +129,35 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
     k = max(2, settings.folds)
     rng = np.random.default_rng(settings.seed)
     fold = (rng.permutation(len(members)) % k).astype(np.int16)
-    weights = np.zeros((k + 1, len(classes), settings.size), dtype=np.float32)
+    # (models, bits, classes): a query's scores gather one row per set bit.
+    weights = np.zeros((k + 1, settings.size, len(classes)), dtype=np.float32)
     bias = np.zeros((k + 1, len(classes)), dtype=np.float32)
     scores = np.zeros(y.shape, dtype=np.float32)
     for f in progress_bar(range(k + 1), total=k + 1, desc="folds", enabled=progress):
         if f == k:
-            weights[0], bias[0] = fit_linear(x, y, settings.seed)
+            coef, bias[0] = fit_linear(x, y, settings.seed)
+            weights[0] = coef.T
             continue
         inside = fold != f
-        weights[f + 1], bias[f + 1] = fit_linear(x[inside], y[inside], settings.seed)
-        scores[~inside] = x[~inside] @ weights[f + 1].T + bias[f + 1]
+        coef, bias[f + 1] = fit_linear(x[inside], y[inside], settings.seed)
+        weights[f + 1] = coef.T
+        scores[~inside] = x[~inside] @ coef.T + bias[f + 1]
     calib = platt(scores, y)
     probs = 1.0 / (1.0 + np.exp(-np.clip(scores * calib[:, 0] + calib[:, 1], -50, 50)))
-    thresholds, low = best_thresholds(probs, y)
-    indptr = x.indptr.astype(np.int64)
+    thresholds, low, high = best_thresholds(probs, y)
     ancestors, disjoint = hierarchy_of(ontology, classes)
     meta: dict[str, Any] = {
         "format": FORMAT, "classes": classes, "settings": asdict(settings), "revision": revision,
         "blobs": {s.path: s.blob for s in ontology.snapshots},
-        "members": [m.id for m in members], "digests": [m.digest for m in members],
         "excluded": excluded, "estimator": f"one-vs-rest LinearSVC(C={SVM_C}) + Platt",
         "ancestors": {c: sorted(a) for c, a in ancestors.items()},
         "disjoint": [list(p) for p in disjoint],
     }
     arrays = {"weights": weights, "bias": bias, "platt": calib, "thresholds": thresholds,
-              "low": low, "ref_indptr": indptr, "ref_bits": x.indices.astype(np.uint32),
-              "ref_fold": fold}
+              "low": low, "high": high, "ref_fold": fold,
+              "member_ids": np.array([m.id.encode() for m in members], dtype=np.bytes_),
+              "digests": np.array([m.digest.encode() for m in members], dtype=np.bytes_),
+              **Neighbours.index(x.indptr.astype(np.int64), x.indices, settings.size)}
     model = Model(arrays, meta)
     figures, summary = evaluate_out_of_fold(model, kept, fold, probs, y)  # type: ignore[arg-type]
     model.meta["figures"] = {c: list(f) for c, f in figures.items()}
@@ -169,15 +179,18 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
     predicted = np.zeros_like(y)
     abstained = np.zeros(len(y), dtype=bool)
     index = {c: j for j, c in enumerate(model.classes)}
-    for i in range(len(y)):
-        verdicts = model._judge("", probs[i], float(sims[i]), None, set())
-        if verdicts and verdicts[0].opinion == "abstains":
-            abstained[i] = True
-            continue
-        for v in verdicts:
-            j = index.get(v.cls)
-            if j is not None and v.opinion == "supports":
-                predicted[i, j] = 1
+    near = np.full(len(y), -1, dtype=np.int64)
+    for start in range(0, len(y), 4096):
+        part = slice(start, min(start + 4096, len(y)))
+        rows = model.verdict_rows([""] * (part.stop - start), probs[part], sims[part], near[part], None)
+        for i, verdicts in enumerate(rows, start):
+            if verdicts and verdicts[0].opinion == "abstains":
+                abstained[i] = True
+                continue
+            for v in verdicts:
+                j = index.get(v.cls)
+                if j is not None and v.opinion == "supports":
+                    predicted[i, j] = 1
     judged = ~abstained
     yt, yp = y[judged], predicted[judged]
     tp = (yt & yp).sum(0).astype(float)
