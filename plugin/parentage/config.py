@@ -11,6 +11,8 @@ import yaml
 from parentage.errors import ParentageError
 from parentage.findings import DEFAULT_FAIL_ON, KINDS, SEVERITIES
 from parentage.snapshot import STRUCTURE_FIELDS
+from parentage.yamlnodes import compose
+from parentage.yamlnodes import scalar as _scalar
 
 CONFIG_NAME = ".parentage.yaml"
 
@@ -67,13 +69,6 @@ class Config:
 
 def _where(path: str, node: yaml.Node, key: str) -> str:
     return f"{path}:{node.start_mark.line + 1}: {key}"
-
-
-_CONSTRUCT = yaml.SafeLoader("")  # PyYAML's own safe scalar construction, reused
-
-
-def _scalar(node: yaml.Node) -> Any:
-    return _CONSTRUCT.construct_object(node) if node.tag != "tag:yaml.org,2002:null" else None
 
 
 def _expect_int(path: str, node: yaml.Node, key: str) -> int:
@@ -161,12 +156,9 @@ def _section(path: str, node: yaml.Node, key: str, record: Any) -> Any:
 
 def parse_config(text: str, path: str) -> Config:
     try:
-        root = yaml.compose(text, Loader=yaml.SafeLoader)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        line = f":{mark.line + 1}" if mark is not None else ""
-        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        raise ConfigError(f"{path}{line}: not valid YAML: {problem}") from None
+        root = compose(text, path)
+    except ParentageError as exc:
+        raise ConfigError(str(exc)) from None
     config = Config(path=path)
     if root is None:
         return config

@@ -37,6 +37,8 @@ from parentage.config import Config, Limits
 from parentage.errors import ParentageError
 from parentage.snapshot import Ontology, read_structure
 from parentage.tiers import Verdict
+from parentage.yamlnodes import compose
+from parentage.yamlnodes import scalar as _scalar
 
 KINDS = ("defining", "necessary", "sufficient")
 SMARTS_KEYS = ("any_of", "all_of", "none_of")
@@ -98,15 +100,6 @@ class Holds(NamedTuple):
 
 def _line(node: yaml.Node) -> int:
     return node.start_mark.line + 1
-
-
-_CONSTRUCT = yaml.SafeLoader("")  # PyYAML's own safe scalar construction, reused
-
-
-def _scalar(node: yaml.Node) -> Any:
-    if not isinstance(node, yaml.ScalarNode) or node.tag == "tag:yaml.org,2002:null":
-        return None
-    return _CONSTRUCT.construct_object(node)
 
 
 def _strings(node: yaml.Node) -> list[tuple[Any, yaml.Node]]:
@@ -193,12 +186,9 @@ def parse_rule_file(path: str, text: str | bytes, problems: list[str]) -> list[R
             problems.append(f"{path}: not UTF-8 text ({exc.reason} at byte {exc.start})")
             return []
     try:
-        root = yaml.compose(text, Loader=yaml.SafeLoader)
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        line = f":{mark.line + 1}" if mark is not None else ""
-        problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
-        problems.append(f"{path}{line}: not valid YAML: {problem}")
+        root = compose(text, path)
+    except ParentageError as exc:
+        problems.append(str(exc))
         return []
     if root is None:
         return []
@@ -454,6 +444,15 @@ class RuleSet:
 
 # -- agreement with the curation (`parentage rules test`) -------------------------------------
 
+def _scores(counts: Any) -> tuple[float, float, float]:
+    """Precision, recall and F1 of a rule against the curation, from its match counts."""
+    found = counts.matched_inside + counts.matched_outside
+    precision = counts.matched_inside / found if found else 0.0
+    recall = counts.matched_inside / counts.members if counts.members else 0.0
+    f1 = 2 * precision * recall / (precision + recall) if precision + recall else 0.0
+    return precision, recall, f1
+
+
 class Agreement(NamedTuple):
     """How one rule fits the asserted classification over every structured term."""
 
@@ -467,17 +466,15 @@ class Agreement(NamedTuple):
 
     @property
     def precision(self) -> float:
-        found = self.matched_inside + self.matched_outside
-        return self.matched_inside / found if found else 0.0
+        return _scores(self)[0]
 
     @property
     def recall(self) -> float:
-        return self.matched_inside / self.members if self.members else 0.0
+        return _scores(self)[1]
 
     @property
     def f1(self) -> float:
-        p, r = self.precision, self.recall
-        return 2 * p * r / (p + r) if p + r else 0.0
+        return _scores(self)[2]
 
     def to_json(self) -> dict[str, Any]:
         return {"rule": self.rule.where, "class": self.rule.cls, "kind": self.rule.kind,
@@ -549,17 +546,15 @@ class Candidate(NamedTuple):
 
     @property
     def precision(self) -> float:
-        found = self.matched_inside + self.matched_outside
-        return self.matched_inside / found if found else 0.0
+        return _scores(self)[0]
 
     @property
     def recall(self) -> float:
-        return self.matched_inside / self.members if self.members else 0.0
+        return _scores(self)[1]
 
     @property
     def f1(self) -> float:
-        p, r = self.precision, self.recall
-        return 2 * p * r / (p + r) if p + r else 0.0
+        return _scores(self)[2]
 
 
 class Proposal(NamedTuple):
