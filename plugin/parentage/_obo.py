@@ -110,7 +110,7 @@ def _term_from_frame(frame: Any, stanza: Stanza) -> Term:
     obsolete = False
     replaced: list[str] = []
     consider: list[str] = []
-    synonyms: list[tuple[str, str]] = []
+    synonyms: list[tuple[str, str, str, str]] = []
     xrefs: list[str] = []
     properties: list[tuple[str, str]] = []
     other: list[tuple[str, str]] = []

@@ -373,9 +373,9 @@ class RuleSet:
         """
         ids = [t for t in term_ids if t in structures]
         lineage = {t: ontology.ancestors(t) for t in ids}
-        for t, extra in (also or {}).items():
+        for t, proposed in (also or {}).items():
             if t in lineage:
-                wanted = set(extra)
+                wanted = set(proposed)
                 lineage[t] = lineage[t].union(wanted, *(ontology.ancestors(c) for c in wanted))
         per_lineage: dict[frozenset[str], set[int]] = {}
         for t in ids:
