@@ -1,0 +1,57 @@
+"""`parentage check` at scale: the whole-file check and a 10-term change, cold and warm.
+
+    python tests/benchmarks/bench_check.py [--size 50k] [--root /tmp/parentage-bench]
+
+Prints wall seconds of fresh processes beside the interpreter's start-up in the same run
+(`parentage --version`), so "work beyond start-up" is the difference. The generator's
+repositories are built under ROOT when missing (see generate.py).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+
+HERE = os.path.dirname(os.path.abspath(__file__))
+sys.path.insert(0, HERE)
+
+import generate  # noqa: E402 - a sibling script, found through the path above
+from report import PY, ensure_repos, measure  # noqa: E402
+
+
+def main() -> int:
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--size", default="50k")
+    p.add_argument("--root", default="/tmp/parentage-bench")
+    args = p.parse_args()
+    size = generate.parse_size(args.size)
+    repo = ensure_repos(args.root, size)[10]
+    store = tempfile.mkdtemp(prefix="parentage-check-store-")
+    env = dict(os.environ, PARENTAGE_CACHE=store)
+    try:
+        start = min(measure([PY, "-m", "parentage", "--version"]).wall for _ in range(3))
+        rows = [("interpreter start-up (`parentage --version`)", start)]
+        cold_all = measure([PY, "-m", "parentage", "check", "--all", "main..change"], repo, env)
+        rows.append(("`check --all`, whole file, empty store", cold_all.wall))
+        warm_all = measure([PY, "-m", "parentage", "check", "--all", "main..change"], repo, env)
+        rows.append(("`check --all`, whole file, warm store", warm_all.wall))
+        shutil.rmtree(store)
+        os.makedirs(store)
+        cold = measure([PY, "-m", "parentage", "check", "main..change"], repo, env)
+        rows.append(("`check`, 10-term change, empty store", cold.wall))
+        warm = min(measure([PY, "-m", "parentage", "check", "main..change"], repo, env).wall
+                   for _ in range(3))
+        rows.append(("`check`, 10-term change, warm store (best of 3)", warm))
+    finally:
+        shutil.rmtree(store, ignore_errors=True)
+    print(f"### `parentage check`, {size} structured terms\n")
+    print("| figure | seconds | beyond start-up |\n|---|---:|---:|")
+    for name, seconds in rows:
+        print(f"| {name} | {seconds:.2f} | {seconds - start:.2f} |")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
