@@ -17,8 +17,8 @@ import tempfile
 HERE = os.path.dirname(os.path.abspath(__file__))
 sys.path.insert(0, HERE)
 
-import generate  # noqa: E402 - a sibling script, found through the path above
-from report import PY, ensure_repos, measure  # noqa: E402
+import generate
+from report import PY, ensure_repos, measure
 
 
 def main() -> int:
