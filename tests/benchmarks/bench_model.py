@@ -186,9 +186,10 @@ def main() -> None:
         print(f"  train {len(model.member_ids)} members (fingerprints included): {took:.1f} s")
         key = model_key(big_onto, config.model)
         store.put_bytes("model", key, model.to_bytes())
-        start = time.perf_counter()
-        loaded = Model.from_bytes(store.get_bytes("model", key) or b"")
-        print(f"  load stored model: {time.perf_counter() - start:.3f} s")
+        for _ in range(3):
+            start = time.perf_counter()
+            loaded = Model.from_bytes(store.get_bytes("model", key) or b"")
+            print(f"  load stored model (store read included): {time.perf_counter() - start:.3f} s")
         for name, stored in (("50k model", loaded), ("benchmark model", results[16384])):
             queries = {f"Q:{i}": m.smiles for i, m in enumerate(test_mols)}
             start = time.perf_counter()
@@ -197,12 +198,20 @@ def main() -> None:
             start = time.perf_counter()
             stored.predict(queries, store=store, evidence=False)
             warm = time.perf_counter() - start
+            # As the review asks: each term's asserted classes (here its true ones), evidence
+            # (bits and atoms, RDKit parsing) only for the suggestions it may report.
+            asked = {q: fgbench.true_classes(m.id) for q, m in zip(queries, test_mols)}
+            start = time.perf_counter()
+            stored.predict(queries, store=store, asserted=asked)
+            review = time.perf_counter() - start
             start = time.perf_counter()
             stored.predict(queries, store=store)
             ev = time.perf_counter() - start
             n = len(queries)
-            print(f"  predict, {name}: {n / cold:.0f}/s with fingerprinting, {n / warm:.0f}/s from "
-                  f"stored fingerprints, {n / ev:.0f}/s with atom evidence")
+            print(f"  predict, {name}: {n / cold:.0f}/s with fingerprinting (RDKit parsing included), "
+                  f"{n / warm:.0f}/s from stored fingerprints, {n / review:.0f}/s from stored "
+                  f"fingerprints as the review asks (asserted classes, evidence for suggestions), "
+                  f"{n / ev:.0f}/s with atom evidence for every support (RDKit parsing included)")
 
 
 if __name__ == "__main__":

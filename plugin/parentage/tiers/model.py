@@ -469,8 +469,11 @@ class Model:
         return {tid: out[tid] for tid in ids}
 
     def verdict_rows(self, ids: Sequence[str], probs: np.ndarray, sims: np.ndarray, near: np.ndarray,
-                     wanted: Sequence[set[str]] | None) -> list[list[Verdict]]:
-        """Verdicts of each row of probabilities; decisions for the whole batch in numpy."""
+                     wanted: Sequence[set[str]] | None, opposing: bool = True) -> list[list[Verdict]]:
+        """Verdicts of each row of probabilities; decisions for the whole batch in numpy.
+
+        `opposing=False` leaves out the opposing verdicts (figures count only supports).
+        """
         thresholds, low, high = self.arrays["thresholds"], self.arrays["low"], self.arrays["high"]
         classes, known, k = self.classes, self._known, len(self.classes)
         closed = self._closed(probs)
@@ -481,6 +484,8 @@ class Model:
         # an ancestor of, is confidently predicted.
         strong |= ((strong.astype(np.float32) @ self._strict_up) > 0) & closed
         against = probs <= low
+        if not opposing:
+            against[:] = False
         member_ids = self.member_ids
         min_sim = self.settings.min_similarity
         out: list[list[Verdict]] = []
