@@ -576,7 +576,8 @@ def model_key(ontology: Ontology, settings: ModelSettings) -> str:
 
 
 def _latest_key(ontology: Ontology, settings: ModelSettings) -> str:
-    return hashlib.sha256(json.dumps([asdict(settings), sorted(ontology.paths)]).encode()).hexdigest()
+    # The layout is part of the key: a pointer left by an older layout is a miss, not an error.
+    return hashlib.sha256(json.dumps([FORMAT, asdict(settings), sorted(ontology.paths)]).encode()).hexdigest()
 
 
 def load_or_train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[str] = (),
