@@ -336,6 +336,25 @@ def test_plain_pre_commit_hook_blocks_and_passes(make_git_repo: Callable[[str], 
     assert repo.git("rev-list", "--count", "HEAD").strip() == "2"
 
 
+def test_a_legacy_problem_never_blocks_an_unrelated_commit(make_git_repo: Callable[[str], GitRepo],
+                                                         tool_path: str) -> None:
+    # The base already holds a broken structure (committed before the hook was installed).
+    repo = make_git_repo("legacy")
+    repo.write("src/compounds.obo", BASE + BAD_TERM)
+    repo.commit("legacy", "src/compounds.obo")
+    _install(repo, "pre-commit")
+    # An unrelated clean edit to the same file: a new synonym on ethanol.
+    repo.write("src/compounds.obo", (BASE + BAD_TERM).replace(
+        "name: ethanol\n", 'name: ethanol\nsynonym: "ethyl alcohol" EXACT []\n'))
+    repo.git("add", "src/compounds.obo")
+    done = _commit(repo, tool_path, "-m", "synonym")
+    assert done.returncode == 0, done.stdout + done.stderr
+    assert repo.git("rev-list", "--count", "HEAD").strip() == "2"
+    # The whole-file check still sees the legacy problem when asked.
+    full = _run([sys.executable, "-m", "parentage", "check", "--all", "HEAD"], repo.path, _clean_env())
+    assert full.returncode == 1 and "QQX:0000012 structure-unreadable" in full.stdout
+
+
 def test_plain_pre_commit_hook_ignores_other_files(make_git_repo: Callable[[str], GitRepo],
                                                    tmp_path: Path) -> None:
     repo = _ontology_repo(make_git_repo)
