@@ -3,8 +3,7 @@
     python tests/benchmarks/report.py [--sizes 10k,50k,200k] [--repeat 3] [--root DIR]
 
 For each size the generator's repositories are built under ROOT (default /tmp/parentage-bench)
-when missing: changes of 1, 10 and 1,000 terms, and a 5-term change that only warms the
-store. Every figure comes from a fresh subprocess; its wall time and its peak resident memory
+when missing: changes of 1, 10 and 1,000 terms. Every figure comes from a fresh subprocess; its wall time and its peak resident memory
 (`os.wait4` of that child) are printed as a markdown table, with pronto's and fastobo's load of
 the same file measured in the same run as baselines.
 
