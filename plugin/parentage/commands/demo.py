@@ -19,7 +19,8 @@ BRANCH = "proposed-change"
 def fixture_files(scenario: str, side: str) -> dict[str, bytes]:
     """The files of a shipped scenario side (`base` or `head`), by repository path."""
     try:
-        root: Any = resources.files("parentage._fixtures").joinpath(scenario, side)
+        # One step at a time: a namespace package's path takes one part per joinpath.
+        root: Any = resources.files("parentage._fixtures").joinpath(scenario).joinpath(side)
     except ModuleNotFoundError:
         # An editable install maps the package but not always a data folder beside it: read
         # the fixtures from the checkout itself.
