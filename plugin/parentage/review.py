@@ -8,7 +8,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable, Iterable, Mapping
-from typing import Any, NamedTuple
+from typing import Any
 
 from parentage.arbitration import arbitrate, disjoint_findings
 from parentage.changes import ChangeSet, affected_terms, diff_ontologies
@@ -17,12 +17,6 @@ from parentage.findings import Finding, Review, compare, with_severity
 from parentage.revisions import Side
 from parentage.snapshot import Ontology, Term, read_structure
 from parentage.workspace import Workspace
-
-
-class SideResult(NamedTuple):
-    findings: list[Finding]
-    rule_verdicts: Mapping[str, list[Any]]
-    model_verdicts: Mapping[str, list[Any]]
 
 
 def smiles_of(term: Term, config: Config) -> str | None:
@@ -58,7 +52,7 @@ def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
     return index
 
 
-def _without(index: Mapping[str, tuple[str, ...]], drop: set[str]) -> dict[str, tuple[str, ...]]:
+def without_terms(index: Mapping[str, tuple[str, ...]], drop: set[str]) -> dict[str, tuple[str, ...]]:
     out = {}
     for key, ids in index.items():
         kept = tuple(i for i in ids if i not in drop)
@@ -115,7 +109,7 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
 
     # Structure and hierarchy at both ends; duplicates against the rest of the ontology.
     base_index = key_index(ws, base) if base.snapshots else {}
-    others = _without(base_index, changed | set(affected))
+    others = without_terms(base_index, changed | set(affected))
     base_ids = [t for t in affected if t in base.terms and not base.terms[t].obsolete]
     # The review re-reads every added or edited structure (a legacy problem of an edited term
     # shows as persisting); members re-checked only because a class changed are not re-read.

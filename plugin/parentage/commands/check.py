@@ -14,7 +14,7 @@ from parentage.changes import affected_terms, diff_ontologies
 from parentage.commands.common import emit, files_not_ranges, open_workspace, parser
 from parentage.findings import compare, with_severity
 from parentage.report import text as text_report
-from parentage.review import _without, is_structured, key_index, structure_changed, structure_side
+from parentage.review import is_structured, key_index, structure_changed, structure_side, without_terms
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -43,7 +43,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         changed = set(changes.touched) | set(changes.removed)
         others: dict[str, tuple[str, ...]] = {}
         if base.snapshots and read:
-            others = _without(key_index(ws, base), changed | set(ids))
+            others = without_terms(key_index(ws, base), changed | set(ids))
         head_findings = structure_side(ws, head, ids, others, read)
         base_ids = [t for t in ids if t in base.terms and not base.terms[t].obsolete]
         base_findings = structure_side(ws, base, base_ids, others, read) if base.snapshots else []
