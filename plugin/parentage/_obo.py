@@ -14,6 +14,7 @@ from typing import Any, NamedTuple
 import fastobo
 
 from parentage.errors import ParentageError
+from parentage.progress import progress
 from parentage.snapshot import Term
 
 _STANZA = re.compile(r"^\[([A-Za-z]+)\][ \t]*(?:!.*)?$")
@@ -190,7 +191,8 @@ def parse_stanzas(stanzas: Iterable[Stanza], path: str) -> list[Term]:
     if len(frames) != len(chosen):
         raise OboSyntaxError(f"{path}: malformed OBO: {len(chosen)} stanzas found but "
                              f"{len(frames)} parsed")
-    return [_term_from_frame(f, s) for f, s in zip(frames, chosen) if s.kind == "Term"]
+    pairs = progress(zip(frames, chosen), total=len(chosen), desc="reading terms")
+    return [_term_from_frame(f, s) for f, s in pairs if s.kind == "Term"]
 
 
 def header_pairs(header: str, path: str) -> tuple[tuple[str, str], ...]:

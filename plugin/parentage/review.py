@@ -126,7 +126,7 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
 
         exclude = set(changes.edited) | set(changes.obsoleted) | set(changes.removed)
         model = load_or_train(base if base.snapshots else head, config, ws.store, exclude,
-                              base_side.name if base.snapshots else head_side.name)
+                              base_side.name if base.snapshots else head_side.name, progress=None)
         if model is None:
             notes.append("model tier: too few members to learn any class "
                          f"(model.min_members = {config.model.min_members}); rule tier only")

@@ -27,6 +27,7 @@ from rdkit import Chem, rdBase
 from rdkit.Chem import Descriptors, rdinchi, rdMolDescriptors
 
 from parentage.config import Limits
+from parentage.progress import progress
 from parentage.store import Store
 
 NAMESPACE = "molfacts"
@@ -256,7 +257,7 @@ def analyse_many(structures: Iterable[str], limits: Limits = DEFAULT_LIMITS, sto
             to_look_up.append(text)
     cached = store.get_many(NAMESPACE, (f"{kind}:{t}" for t in to_look_up)) if store else {}
     fresh: dict[str, Any] = {}
-    for text in to_look_up:
+    for text in progress(to_look_up, desc="structures"):
         row = cached.get(f"{kind}:{text}")
         if row is not None:
             facts = MolFacts.from_json(row)
