@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Iterable, Iterator, Mapping
 from typing import Any
 
 from parentage.arbitration import arbitrate, disjoint_findings
@@ -34,14 +34,14 @@ def is_structured(config: Config) -> Callable[[Term], bool]:
 
 def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
     """Standard InChIKey -> live term ids over the whole ontology, cached per file versions."""
-    from parentage.tiers.structure import inchikey_index, structure_facts
-
     stamp = json.dumps([[s.path, s.blob] for s in ontology.snapshots] + [sorted(
         (k, list(v)) for k, v in ws.config.structure.items())])
     key = hashlib.sha256(stamp.encode()).hexdigest()
     cached = ws.store.get("inchikey-index", key)
     if cached is not None:
-        return {k: tuple(v) for k, v in cached.items()}
+        return cached  # lists, not tuples: only ever iterated
+    from parentage.tiers.structure import inchikey_index, structure_facts
+
     # Written InChIKeys stand in for unchanged terms (a wrong one is that term's own
     # annotation-mismatch); only terms without one are read, so a cold index stays cheap.
     unkeyed = [t.id for t in ontology.merged.live()
@@ -52,13 +52,24 @@ def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
     return index
 
 
-def without_terms(index: Mapping[str, tuple[str, ...]], drop: set[str]) -> dict[str, tuple[str, ...]]:
-    out = {}
-    for key, ids in index.items():
-        kept = tuple(i for i in ids if i not in drop)
-        if kept:
-            out[key] = kept
-    return out
+class IndexWithout(Mapping[str, tuple[str, ...]]):
+    """An InChIKey index with some terms left out, filtered on lookup (a review looks up a
+    handful of keys in an index of the whole ontology)."""
+
+    def __init__(self, index: Mapping[str, tuple[str, ...]], drop: set[str]) -> None:
+        self.index, self.drop = index, drop
+
+    def __getitem__(self, key: str) -> tuple[str, ...]:
+        kept = tuple(i for i in self.index[key] if i not in self.drop)
+        if not kept:
+            raise KeyError(key)
+        return kept
+
+    def __iter__(self) -> Iterator[str]:
+        return (k for k in self.index if k in self)
+
+    def __len__(self) -> int:
+        return sum(1 for _ in self)
 
 
 def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
@@ -109,7 +120,7 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
 
     # Structure and hierarchy at both ends; duplicates against the rest of the ontology.
     base_index = key_index(ws, base) if base.snapshots else {}
-    others = without_terms(base_index, changed | set(affected))
+    others = IndexWithout(base_index, changed | set(affected))
     base_ids = [t for t in affected if t in base.terms and not base.terms[t].obsolete]
     # The review re-reads every added or edited structure (a legacy problem of an edited term
     # shows as persisting); members re-checked only because a class changed are not re-read.

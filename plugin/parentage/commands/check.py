@@ -8,13 +8,13 @@ blocks an unrelated commit. `--all` checks every term and blocks on any `fail_on
 from __future__ import annotations
 
 import sys
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 
 from parentage.changes import affected_terms, diff_ontologies
 from parentage.commands.common import emit, files_not_ranges, open_workspace, parser
 from parentage.findings import compare, with_severity
 from parentage.report import text as text_report
-from parentage.review import is_structured, key_index, structure_changed, structure_side, without_terms
+from parentage.review import IndexWithout, is_structured, key_index, structure_changed, structure_side
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -41,9 +41,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             ids = list(affected_terms(base, head, changes, (), is_structured(ws.config)))
             read = structure_changed(changes)
         changed = set(changes.touched) | set(changes.removed)
-        others: dict[str, tuple[str, ...]] = {}
+        others: Mapping[str, tuple[str, ...]] = {}
         if base.snapshots and read:
-            others = without_terms(key_index(ws, base), changed | set(ids))
+            others = IndexWithout(key_index(ws, base), changed | set(ids))
         head_findings = structure_side(ws, head, ids, others, read)
         base_ids = [t for t in ids if t in base.terms and not base.terms[t].obsolete]
         base_findings = structure_side(ws, base, base_ids, others, read) if base.snapshots else []
