@@ -135,7 +135,7 @@ def affected_terms(base: Ontology, head: Ontology, changes: ChangeSet,
             add(desc, True)
     gone = set(changes.removed) | set(changes.obsoleted)
     if gone:
-        for term in head.terms.values():
-            if any(target in gone for _, target in term.references()):
-                add(term.id, False)
+        for tid in head.terms.mentioning(gone):
+            if any(target in gone for _, target in head.terms[tid].references()):
+                add(tid, False)
     return tuple(wanted)

@@ -163,7 +163,10 @@ class Repository:
     def matching(self, side: Side, patterns: tuple[str, ...]) -> list[str]:
         return [p for p in self.list_files(side) if any(match_glob(g, p) for g in patterns)]
 
-    def read(self, side: Side, path: str) -> FileVersion:
+    def read(self, side: Side, path: str, sha_only: bool = False) -> FileVersion:
+        """The file at `side`. With `sha_only`, the bytes are left out (data None) wherever git
+        knows the sha without them (commits and the index): a cache keyed by blob sha then
+        never reads a large file it already holds."""
         if side.kind == EMPTY:
             return FileVersion(path, None, None)
         if side.kind == WORKTREE:
@@ -186,7 +189,8 @@ class Repository:
                 return FileVersion(path, None, None)
             if not sha:
                 return FileVersion(path, None, None)
-        return FileVersion(path, sha.strip(), self.blob_bytes(sha.strip()))
+        sha = sha.strip()
+        return FileVersion(path, sha, None if sha_only else self.blob_bytes(sha))
 
     def blob_bytes(self, sha: str) -> bytes:
         return bytes(self.repo.odb.stream(bytes.fromhex(sha)).read())

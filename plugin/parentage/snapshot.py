@@ -132,6 +132,23 @@ class TermTable(Mapping[str, Term]):
     def __contains__(self, tid: object) -> bool:
         return tid in self.index
 
+    def mentioning(self, ids: set[str]) -> Iterator[str]:
+        """Terms that may refer to one of `ids`: a superset, found without decoding rows.
+
+        A parent column hit is certain; a stored row is a candidate when an id occurs in its
+        text (the caller confirms on the decoded term).
+        """
+        written = {json.dumps(i)[1:-1] for i in ids}  # as the ASCII JSON rows spell them
+        for tid, n in self.index.items():
+            row = self.rows[n]
+            if any(p in ids for p in self.parents[n]):
+                yield tid
+            elif isinstance(row, Term):
+                if any(target in ids for _, target in row.references()):
+                    yield tid
+            elif any(i in row for i in written):
+                yield tid
+
     def row_of(self, tid: str) -> str:
         """The stored JSON row of a term (its non-column fields)."""
         row = self.rows[self.index[tid]]

@@ -47,8 +47,8 @@ class Workspace:
     # -- snapshots ---------------------------------------------------------------------------
     def snapshot(self, side: Side, path: str, base: Snapshot | None = None) -> Snapshot | None:
         """The snapshot of `path` at `side`, or None where the file is absent."""
-        version = self.repo.read(side, path)
-        if version.blob is None or version.data is None:
+        version = self.repo.read(side, path, sha_only=True)
+        if version.blob is None:
             return None
         key = (version.blob, path)
         cached = self._snapshots.get(key)
@@ -62,7 +62,8 @@ class Workspace:
             except (KeyError, TypeError, ValueError):
                 snap = None  # an entry of another layout: parse again and replace it
         if snap is None:
-            text = decode(version.data, path)
+            data = version.data if version.data is not None else self.repo.blob_bytes(version.blob)
+            text = decode(data, path)
             snap = parse_ontology_text(text, path, version.blob, base)
             self.store.put("snapshot", f"{version.blob}:{path}", snap.to_json())
         self._snapshots[key] = snap
@@ -92,7 +93,8 @@ class Workspace:
              only: Iterable[str] = ()) -> tuple[Ontology, Ontology]:
         only = list(only)
         for path in only:
-            if self.repo.read(base_side, path).blob is None and self.repo.read(head_side, path).blob is None:
+            if (self.repo.read(base_side, path, sha_only=True).blob is None
+                    and self.repo.read(head_side, path, sha_only=True).blob is None):
                 raise ParentageError(f"{path}: no such file at {base_side.name} or {head_side.name}")
         base = self.ontology(base_side, self.ontology_paths(base_side, only) if base_side.kind != EMPTY else [])
         head = self.ontology(head_side, self.ontology_paths(head_side, only), base)
