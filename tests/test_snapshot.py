@@ -361,3 +361,19 @@ def test_incremental_header_agrees_with_full_parse(header: str) -> None:
         except ParentageError as exc:
             outcomes.append(str(exc))
     assert outcomes[0] == outcomes[1]
+
+
+def test_mentioning_finds_every_reference_without_decoding() -> None:
+    # A stored table (rows still JSON text) must name each term that refers to a removed id,
+    # through is_a or through a relationship kept only in the row; decoding every term is the
+    # reference answer it must agree with.
+    text = ("[Term]\nid: QQX:1\nname: a\n\n[Term]\nid: QQX:2\nname: b\nis_a: QQX:1\n\n"
+            "[Term]\nid: QQX:3\nname: c\nrelationship: has_part QQX:1\n\n"
+            "[Term]\nid: QQX:4\nname: d\n")
+    stored = Snapshot.from_json(json.loads(json.dumps(full(text).to_json())))
+    found = set(stored.terms.mentioning({"QQX:1"}))
+    expected = {t.id for t in full(text).terms.values()
+                if any(target == "QQX:1" for _, target in t.references())}
+    assert expected == {"QQX:2", "QQX:3"}
+    assert expected <= found
+    assert "QQX:4" not in found
