@@ -3,12 +3,15 @@
 Random OBO documents are edited at random: stanzas added, removed, modified (names, parents,
 properties, synonyms, obsolescence), duplicated and reordered; blank lines and comment lines
 added; the header changed. The head is then built twice: from scratch, and from the base
-snapshot (as it comes back from the store, through JSON). Every `Term` field (spans and
-digests included) and the header must agree, and when one build rejects the text the other
+snapshot (as it comes back from the store, through JSON), once by the digests of every head
+stanza and once by comparing the head with the base's text block by block (that head is
+stored as segments over its base; read back, it must agree too). Every `Term` field (spans
+and digests included), the stanza layout and the header must agree, and when one build rejects the text the other
 must reject it with the same message.
 """
 from __future__ import annotations
 
+import json
 from typing import Any
 
 import pytest
@@ -170,10 +173,10 @@ def edited(draw: st.DrawFn, doc: Doc) -> tuple[Doc, str]:
     return new, draw(st.sampled_from(["\n", "\n", "\r\n"]))
 
 
-def build(text: str, base: Snapshot | None) -> tuple[str, Any]:
+def build(text: str, base: Snapshot | None, base_text: str | None = None) -> tuple[str, Any]:
     """("ok", snapshot), ("error", message), or ("panic", message) when fastobo panics."""
     try:
-        return "ok", parse_ontology_text(text, PATH, "blob", base)
+        return "ok", parse_ontology_text(text, PATH, "blob", base, base_text)
     except _obo.OboSyntaxError as exc:
         return "error", str(exc)
     except BaseException as exc:
@@ -201,12 +204,19 @@ def check_pair(base_text: str, head_text: str) -> None:
     stored = Snapshot.from_json(base.to_json())  # the base as the store gives it back
     full = build(head_text, None)
     for reused in (base, stored):
-        incremental = build(head_text, reused)
-        assert incremental[0] == full[0], (full, incremental)
-        if full[0] != "ok":
-            assert incremental[1] == full[1]
-        else:
+        # By digests of every head stanza, and by comparing the head with the base's text.
+        for incremental in (build(head_text, reused), build(head_text, reused, base_text)):
+            assert incremental[0] == full[0], (full, incremental)
+            if full[0] != "ok":
+                assert incremental[1] == full[1]
+                continue
             assert_same(full[1], incremental[1])
+            assert incremental[1].layout == full[1].layout
+            if incremental[1].base is not None:
+                # A derived head is stored as segments over its base; read back it is the same.
+                again = Snapshot.from_json(json.loads(json.dumps(incremental[1].to_json())), reused)
+                assert_same(full[1], again)
+                assert again.layout == full[1].layout
 
 
 @st.composite

@@ -206,7 +206,7 @@ def test_config_cache_key_sets_the_location(two_commits: GitRepo,
 # -- cache hits ------------------------------------------------------------------------------
 
 def _parse_count() -> int:
-    return parse.PARSE_CALLS["full"] + parse.PARSE_CALLS["incremental"]
+    return sum(parse.PARSE_CALLS.values())
 
 
 def _reset() -> None:

@@ -68,14 +68,21 @@ def diff_ontologies(base: Ontology, head: Ontology,
     """Compare term by term. Equal digests (same stanza text) are never compared field by field."""
     props = structure_properties(mapping or {f: (f,) for f in STRUCTURE_FIELDS})
     old_terms, new_terms = base.terms, head.terms
-    added = tuple(t for t in new_terms if t not in old_terms)
-    removed = tuple(t for t in old_terms if t not in new_terms)
+    maybe = _candidates(base, head)
+    if maybe is None:
+        head_ids: Iterable[str] = new_terms
+        base_ids: Iterable[str] = old_terms
+    else:
+        head_ids = sorted((t for t in maybe if t in new_terms), key=new_terms.index.__getitem__)
+        base_ids = sorted((t for t in maybe if t in old_terms), key=old_terms.index.__getitem__)
+    added = tuple(t for t in head_ids if t not in old_terms)
+    removed = tuple(t for t in base_ids if t not in new_terms)
     obsoleted: list[str] = []
     edited: list[str] = []
     fields: dict[str, tuple[str, ...]] = {}
     moved: dict[str, tuple[str, str]] = {}
     old_digest, new_digest = base.merged.digest_of, head.merged.digest_of
-    for tid in new_terms:
+    for tid in head_ids:
         if tid not in old_terms:
             continue
         if base.path_of[tid] != head.path_of[tid]:
@@ -92,6 +99,42 @@ def diff_ontologies(base: Ontology, head: Ontology,
         else:
             edited.append(tid)
     return ChangeSet(added, removed, tuple(obsoleted), tuple(edited), fields, moved)
+
+
+def _candidates(base: Ontology, head: Ontology) -> set[str] | None:
+    """Ids that may differ between the two sides, found without visiting every term.
+
+    A head file built from its base file by copying runs of stanzas (`Snapshot.copied`) can
+    differ only in the terms outside those runs, on either side; an identical file in none;
+    any other file in all of its terms. None when a side has duplicate ids (compare all).
+    """
+    if any(len(s.terms.index) != len(s.terms.ids) for s in (*base.snapshots, *head.snapshots)):
+        return None
+    old_files = {s.path: s for s in base.snapshots}
+    out: set[str] = set()
+    for snap in head.snapshots:
+        old = old_files.pop(snap.path, None)
+        if old is not None and old.blob is not None and old.blob == snap.blob:
+            continue
+        origin = snap.base
+        if old is None or origin is None or (origin.blob, origin.path) != (old.blob, old.path):
+            out.update(snap.terms.ids)
+            if old is not None:
+                out.update(old.terms.ids)
+            continue
+        in_head = bytearray(len(snap.terms.ids))
+        in_base = bytearray(len(old.terms.ids))
+        for at, start, count in snap.copied:
+            in_head[at:at + count] = b"\x01" * count
+            in_base[start:start + count] = b"\x01" * count
+        for covered, ids in ((in_head, snap.terms.ids), (in_base, old.terms.ids)):
+            n = covered.find(0)
+            while n != -1:
+                out.add(ids[n])
+                n = covered.find(0, n + 1)
+    for old in old_files.values():
+        out.update(old.terms.ids)
+    return out
 
 
 CLASS_FIELDS = frozenset({"parents", "relationships", "disjointness", "obsolescence"})

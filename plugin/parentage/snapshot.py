@@ -157,16 +157,44 @@ class TermTable(Mapping[str, Term]):
         return str(row)
 
 
+class Layout(NamedTuple):
+    """Where each stanza of an OBO file starts (offset in the normalised text, 1-based line) and
+    whether it is a Term stanza. Kept so the next revision can be compared block by block."""
+
+    starts: list[int]
+    lines: list[int]
+    terms: list[bool]
+
+
+# A head built from a base: runs of base stanzas copied unchanged, and new stanzas.
+# ("copy", first base stanza, count, offset shift, line shift) | ("new", offset, line, Term | None)
+Segment = tuple[Any, ...]
+
+# A derived snapshot is stored as its segments; a chain longer than this is stored whole.
+MAX_DERIVED_DEPTH = 8
+
+
 class Snapshot:
     """All terms of one ontology file at one revision; the hierarchy is computed lazily."""
 
     def __init__(self, path: str, blob: str | None, terms: Iterable[Term] | TermTable,
-                 header: tuple[tuple[str, str], ...] = ()) -> None:
+                 header: tuple[tuple[str, str], ...] = (), layout: Layout | None = None) -> None:
         self.path = path
         self.blob = blob
         self.header = header
         self.terms: TermTable = terms if isinstance(terms, TermTable) else TermTable.of(terms)
+        self.layout = layout
+        # Set when built from a base by copying runs of its stanzas (see `derived`).
+        self.base: Snapshot | None = None
+        self.segments: list[Segment] = []
+        self.copied: list[tuple[int, int, int]] = []  # (head position, base position, count)
+        self.depth = 0
         self._ancestors: dict[str, frozenset[str]] = {}
+
+    @property
+    def reusable(self) -> bool:
+        """True when a later revision can be compared with this one block by block."""
+        return self.layout is not None and len(self.terms) == sum(self.layout.terms)
 
     def __len__(self) -> int:
         return len(self.terms)
@@ -188,6 +216,11 @@ class Snapshot:
     def is_obsolete(self, term_id: str) -> bool:
         n = self.terms.index.get(term_id)
         return n is not None and self.terms.obsolete[n]
+
+    @cached_property
+    def parent_ids(self) -> frozenset[str]:
+        """Every id some term names as a parent (cheaper than the children map)."""
+        return frozenset(p for ps in self.terms.parents for p in ps)
 
     @cached_property
     def children(self) -> dict[str, tuple[str, ...]]:
@@ -228,6 +261,8 @@ class Snapshot:
         return frozen
 
     def descendants(self, term_id: str) -> frozenset[str]:
+        if term_id not in self.parent_ids:
+            return frozenset()  # a leaf: no need to build the children map
         result: set[str] = set()
         stack = [term_id]
         while stack:
@@ -251,22 +286,39 @@ class Snapshot:
 
     # -- serialisation for the store (JSON, never pickle) -------------------------------
     def to_json(self) -> dict[str, Any]:
-        """The store form: each column one string (JSON decodes a few long strings far faster
+        """The store form. A snapshot derived from a stored base is kept as its segments; a
+        whole one keeps each column as one string (JSON decodes a few long strings far faster
         than 50,000 short ones). Ids and parent ids hold no whitespace in OBO, and rows are
         ASCII JSON, so newline, tab and the record separator cannot occur inside them."""
+        if self.base is not None and self.depth <= MAX_DERIVED_DEPTH:
+            return {"path": self.path, "blob": self.blob, "header": list(self.header),
+                    "base": [self.base.blob, self.base.path],
+                    "segments": [list(seg[:3]) + [_term_to_list(seg[3]) if seg[3] else None]
+                                 if seg[0] == "new" else list(seg) for seg in self.segments]}
         table = self.terms
         ids = list(table)
         pos = [table.index[t] for t in ids]
+        layout = self.layout
         return {"path": self.path, "blob": self.blob, "header": list(self.header),
                 "ids": "\n".join(ids),
                 "parents": "\n".join("\t".join(table.parents[n]) for n in pos),
                 "obsolete": "".join("1" if table.obsolete[n] else "0" for n in pos),
                 "lines": [x for n in pos for x in table.lines[n]],
                 "digests": "\n".join(table.digests[n] for n in pos),
-                "rows": "\x1e".join(table.row_of(t) for t in ids)}
+                "rows": "\x1e".join(table.row_of(t) for t in ids),
+                "layout": None if layout is None else
+                [layout.starts, layout.lines, "".join("1" if t else "0" for t in layout.terms)]}
 
     @classmethod
-    def from_json(cls, data: Mapping[str, Any]) -> Snapshot:
+    def from_json(cls, data: Mapping[str, Any], base: Snapshot | None = None) -> Snapshot:
+        """Rebuild a stored snapshot; a derived one needs its `base` (see `base_key`)."""
+        if "segments" in data:
+            if base is None:
+                raise ValueError("a derived snapshot needs its base")
+            segments = [tuple(seg[:3]) + (_term_from_list(seg[3]) if seg[3] else None,)
+                        if seg[0] == "new" else tuple(seg) for seg in data["segments"]]
+            return derived(data["path"], data["blob"], tuple(tuple(h) for h in data["header"]),
+                           base, segments)
         ids = data["ids"].split("\n") if data["ids"] else []
         parents = [tuple(p.split("\t")) if p else () for p in data["parents"].split("\n")] if ids else []
         flat = data["lines"]
@@ -274,7 +326,92 @@ class Snapshot:
         table = TermTable(ids, parents, [c == "1" for c in data["obsolete"]], lines,
                           data["digests"].split("\n") if ids else [],
                           data["rows"].split("\x1e") if ids else [])
-        return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]))
+        stored = data.get("layout")
+        layout = None if stored is None else Layout(stored[0], stored[1], [c == "1" for c in stored[2]])
+        return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
+
+    @staticmethod
+    def base_key(data: Mapping[str, Any]) -> tuple[str, str] | None:
+        """(blob, path) of the base a stored derived snapshot needs, or None for a whole one."""
+        return tuple(data["base"]) if "segments" in data else None  # type: ignore[return-value]
+
+
+def _term_to_list(term: Term) -> list[Any]:
+    return list(term)
+
+
+def _term_from_list(data: list[Any]) -> Term:
+    return Term(data[0], data[1], tuple(data[2]), _tuples(data[3]), tuple(data[4]), data[5],
+                tuple(data[6]), tuple(data[7]), _tuples(data[8]), tuple(data[9]), _tuples(data[10]),
+                _tuples(data[11]), *data[12:])
+
+
+def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], base: Snapshot,
+            segments: list[Segment]) -> Snapshot:
+    """The snapshot made of `segments` over `base` (which must be `reusable`).
+
+    Copied runs take the base's columns as slices (rows stay undecoded); only line numbers
+    are shifted. The result remembers which of its terms were copied, so a diff against the
+    base looks at the rest only.
+    """
+    assert base.layout is not None
+    old, layout = base.terms, base.layout
+    first_term = [0] * (len(layout.terms) + 1)  # base term position of each base stanza
+    count = 0
+    for k, is_term in enumerate(layout.terms):
+        first_term[k] = count
+        count += is_term
+    first_term[-1] = count
+    ids: list[str] = []
+    parents: list[tuple[str, ...]] = []
+    obsolete: list[bool] = []
+    lines: list[tuple[int, int]] = []
+    digests: list[str] = []
+    rows: list[Any] = []
+    starts: list[int] = []
+    stanza_lines: list[int] = []
+    flags: list[bool] = []
+    copied: list[tuple[int, int, int]] = []
+    for seg in segments:
+        if seg[0] == "copy":
+            _, k, n, shift, line_shift = seg
+            p, q = first_term[k], first_term[k + n]
+            if q > p:
+                copied.append((len(ids), p, q - p))
+            ids += old.ids[p:q]
+            parents += old.parents[p:q]
+            obsolete += old.obsolete[p:q]
+            digests += old.digests[p:q]
+            if line_shift:
+                lines += [(a + line_shift, b + line_shift) for a, b in old.lines[p:q]]
+                rows += [r._replace(line=r.line + line_shift, end_line=r.end_line + line_shift)
+                         if isinstance(r, Term) else r for r in old.rows[p:q]]
+                stanza_lines += [x + line_shift for x in layout.lines[k:k + n]]
+            else:
+                lines += old.lines[p:q]
+                rows += old.rows[p:q]
+                stanza_lines += layout.lines[k:k + n]
+            starts += [x + shift for x in layout.starts[k:k + n]] if shift else layout.starts[k:k + n]
+            flags += layout.terms[k:k + n]
+        else:
+            _, offset, line, term = seg
+            starts.append(offset)
+            stanza_lines.append(line)
+            flags.append(term is not None)
+            if term is not None:
+                ids.append(term.id)
+                parents.append(term.parents)
+                obsolete.append(term.obsolete)
+                lines.append((term.line, term.end_line))
+                digests.append(term.digest)
+                rows.append(term)
+    snap = Snapshot(path, blob, TermTable(ids, parents, obsolete, lines, digests, rows), header,
+                    Layout(starts, stanza_lines, flags))
+    snap.base = base
+    snap.segments = segments
+    snap.copied = copied
+    snap.depth = base.depth + 1
+    return snap
 
 
 class Ontology:

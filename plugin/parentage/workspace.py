@@ -7,7 +7,7 @@ from parentage.config import Config, load_config
 from parentage.errors import ParentageError
 from parentage.parse import decode, parse_ontology_text
 from parentage.revisions import EMPTY, Repository, Side
-from parentage.snapshot import Ontology, Snapshot
+from parentage.snapshot import MAX_DERIVED_DEPTH, Ontology, Snapshot
 from parentage.store import Store, default_store_path
 
 ONTOLOGY_SUFFIXES = (".obo", ".json")
@@ -50,23 +50,38 @@ class Workspace:
         version = self.repo.read(side, path, sha_only=True)
         if version.blob is None:
             return None
-        key = (version.blob, path)
-        cached = self._snapshots.get(key)
-        if cached is not None:
-            return cached
-        stored = self.store.get("snapshot", f"{version.blob}:{path}")
-        snap = None
-        if stored is not None:
-            try:
-                snap = Snapshot.from_json(stored)
-            except (KeyError, TypeError, ValueError):
-                snap = None  # an entry of another layout: parse again and replace it
+        snap = self._stored(version.blob, path)
         if snap is None:
             data = version.data if version.data is not None else self.repo.blob_bytes(version.blob)
             text = decode(data, path)
-            snap = parse_ontology_text(text, path, version.blob, base)
+            base_text = None
+            if base is not None and base.blob is not None and base.reusable:
+                # Comparing with the base's text finds the unchanged runs without splitting them.
+                base_text = decode(self.repo.blob_bytes(base.blob), base.path)
+            snap = parse_ontology_text(text, path, version.blob, base, base_text)
             self.store.put("snapshot", f"{version.blob}:{path}", snap.to_json())
-        self._snapshots[key] = snap
+            self._snapshots[(version.blob, path)] = snap
+        return snap
+
+    def _stored(self, blob: str, path: str, depth: int = 0) -> Snapshot | None:
+        """A snapshot from this run or from the store; a derived one brings its base along."""
+        cached = self._snapshots.get((blob, path))
+        if cached is not None:
+            return cached
+        stored = self.store.get("snapshot", f"{blob}:{path}")
+        if stored is None:
+            return None
+        try:
+            base_key = Snapshot.base_key(stored)
+            base = None
+            if base_key is not None:
+                base = self._stored(*base_key, depth + 1) if depth < 2 * MAX_DERIVED_DEPTH else None
+                if base is None:
+                    return None  # its base is gone from the store: parse again
+            snap = Snapshot.from_json(stored, base)
+        except (KeyError, TypeError, ValueError, IndexError):
+            return None  # an entry of another layout: parse again and replace it
+        self._snapshots[(blob, path)] = snap
         return snap
 
     def ontology(self, side: Side, paths: Iterable[str] | None = None,
