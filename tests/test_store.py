@@ -57,10 +57,15 @@ def test_no_pickle_in_the_file(tmp_path: Path) -> None:
     path = tmp_path / "store.sqlite"
     store = Store(str(path))
     store.put("snapshot", "k", {"a": 1})
+    store.put_bytes("plain", "k", b"\x00raw bytes", compress=False)
     store.close()
     with sqlite3.connect(path) as conn:
-        (raw,) = conn.execute("SELECT value FROM entry").fetchone()
-    assert json.loads(zlib.decompress(raw)) == {"a": 1}
+        (packed,) = conn.execute("SELECT value FROM entry WHERE namespace='snapshot'").fetchone()
+        (plain,) = conn.execute("SELECT value FROM entry WHERE namespace='plain'").fetchone()
+    # One byte says how the value is kept ("z": zlib, "r": as given); the rest is JSON or bytes.
+    assert packed[:1] == b"z" and json.loads(zlib.decompress(packed[1:])) == {"a": 1}
+    assert plain == b"r\x00raw bytes"
+    assert Store(str(path)).get_bytes("plain", "k") == b"\x00raw bytes"
 
 
 def test_another_version_does_not_see_old_entries(tmp_path: Path) -> None:

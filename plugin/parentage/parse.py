@@ -92,13 +92,10 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) 
     layout = base.layout
     assert layout is not None
     starts, count = layout.starts, len(layout.starts)
-    ends = starts[1:] + [len(old)]
     old_first = starts[0] if starts else len(old)
     head_starts = _obo.stanza_starts_from(text, 0, 1)
     first = head_starts[0] if head_starts else len(text)
     header_text = text[:first]
-    header = base.header if header_text == old[:old_first] else \
-        _obo.header_pairs(header_text.removesuffix("\n"), path)
     known = _digest_to_stanza(base)
     segments: list[Segment] = []
     fresh: list[tuple[int, _obo.Stanza]] = []
@@ -109,7 +106,8 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) 
         if k < count:
             block = min(block, count - k)
             while block:
-                length = ends[k + block - 1] - starts[k]
+                after = k + block
+                length = (starts[after] if after < count else len(old)) - starts[k]
                 stop = at + length
                 if text[at:stop] == old[starts[k]:starts[k] + length] and \
                         (stop == size or _obo.is_stanza_line(text, stop)):
@@ -137,6 +135,9 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) 
         at = stop
         block = 1
     parsed = _obo.parse_stanzas([s for _, s in fresh], path)
+    # After the stanzas, as a full parse does, so the same error is reported first.
+    header = base.header if header_text == old[:old_first] else \
+        _obo.header_pairs(header_text.removesuffix("\n"), path)
     terms = iter(parsed)
     for place, stanza in fresh:
         term = next(terms) if stanza.kind == "Term" else None

@@ -32,14 +32,37 @@ def is_structured(config: Config) -> Callable[[Term], bool]:
     return lambda term: structured_term(term, config)
 
 
-def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
+class StoredIndex(Mapping[str, tuple[str, ...]]):
+    """An InChIKey index kept in the store one key per row: a review looks up the handful of
+    keys its terms have, so the index of the whole ontology is never read whole."""
+
+    def __init__(self, ws: Workspace, namespace: str) -> None:
+        self.store, self.namespace = ws.store, namespace
+        self._seen: dict[str, tuple[str, ...] | None] = {}
+
+    def __getitem__(self, key: str) -> tuple[str, ...]:
+        if key not in self._seen:
+            found = self.store.get(self.namespace, key)
+            self._seen[key] = tuple(found) if found else None
+        value = self._seen[key]
+        if value is None:
+            raise KeyError(key)
+        return value
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.store.keys(self.namespace))
+
+    def __len__(self) -> int:
+        return len(self.store.keys(self.namespace))
+
+
+def key_index(ws: Workspace, ontology: Ontology) -> Mapping[str, tuple[str, ...]]:
     """Standard InChIKey -> live term ids over the whole ontology, cached per file versions."""
     stamp = json.dumps([[s.path, s.blob] for s in ontology.snapshots] + [sorted(
         (k, list(v)) for k, v in ws.config.structure.items())])
-    key = hashlib.sha256(stamp.encode()).hexdigest()
-    cached = ws.store.get("inchikey-index", key)
-    if cached is not None:
-        return cached  # lists, not tuples: only ever iterated
+    namespace = "inchikey-index:" + hashlib.sha256(stamp.encode()).hexdigest()
+    if ws.store.get("inchikey-index-built", namespace) is not None:
+        return StoredIndex(ws, namespace)
     from parentage.tiers.structure import inchikey_index, structure_facts
 
     # Written InChIKeys stand in for unchanged terms (a wrong one is that term's own
@@ -48,7 +71,8 @@ def key_index(ws: Workspace, ontology: Ontology) -> dict[str, tuple[str, ...]]:
                if not read_structure(t, ws.config.structure).inchikey]
     facts = structure_facts(ontology, unkeyed, ws.config, ws.store)
     index = inchikey_index(ontology, ws.config, facts)
-    ws.store.put("inchikey-index", key, {k: list(v) for k, v in index.items()})
+    ws.store.put_many(namespace, {k: list(v) for k, v in index.items()})
+    ws.store.put("inchikey-index-built", namespace, len(index))
     return index
 
 

@@ -6,9 +6,10 @@ the private adapters `_obo.py` (fastobo) and `_obojson.py` (OBO Graphs JSON).
 from __future__ import annotations
 
 import json
-from collections.abc import Iterable, Iterator, Mapping
+from bisect import bisect_right
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from functools import cached_property
-from typing import Any, NamedTuple
+from typing import Any, NamedTuple, overload
 
 STRUCTURE_FIELDS = ("smiles", "inchi", "inchikey", "formula", "mass", "monoisotopic_mass", "charge")
 
@@ -80,21 +81,161 @@ def _tuples(value: Any) -> tuple[Any, ...]:
     return tuple(tuple(v) if isinstance(v, list) else v for v in value)
 
 
+class ParentColumn(Sequence[tuple[str, ...]]):
+    """The is_a targets of every term, kept as tab-joined strings and split on access: a warm
+    load then splits one string, not one per term. OBO ids hold no whitespace."""
+
+    __slots__ = ("raw",)
+
+    def __init__(self, raw: list[str]) -> None:
+        self.raw = raw
+
+    @classmethod
+    def of(cls, parents: Iterable[tuple[str, ...]]) -> ParentColumn:
+        return cls(["\t".join(p) for p in parents])
+
+    @overload
+    def __getitem__(self, n: int) -> tuple[str, ...]: ...
+    @overload
+    def __getitem__(self, n: slice) -> ParentColumn: ...
+    def __getitem__(self, n: int | slice) -> tuple[str, ...] | ParentColumn:
+        if isinstance(n, slice):
+            return ParentColumn(self.raw[n])
+        text = self.raw[n]
+        return tuple(text.split("\t")) if text else ()
+
+    def __len__(self) -> int:
+        return len(self.raw)
+
+    def named(self) -> frozenset[str]:
+        """Every id named as a parent by some term."""
+        return frozenset("\t".join(self.raw).split("\t")) - {""}
+
+
+class Shifted(Sequence[Any]):
+    """A column made of runs of other columns, each run's values moved by a constant: the
+    line numbers and offsets of a head built from its base. A run costs O(1) to add, and a
+    value is computed when asked for, so a 50,000-term head does not rebuild its lines."""
+
+    def __init__(self) -> None:
+        self._at: list[int] = []  # first position of each run
+        self._runs: list[tuple[Sequence[Any], int, int, int]] = []  # (source, start, count, shift)
+        self._size = 0
+        self._tail: list[Any] = []  # values added one by one since the last run
+
+    def _close_tail(self) -> None:
+        if self._tail:
+            tail, self._tail = self._tail, []
+            self._at.append(self._size - len(tail))
+            self._runs.append((tail, 0, len(tail), 0))
+
+    def add(self, source: Sequence[Any], start: int, count: int, shift: int) -> None:
+        if count <= 0:
+            return
+        self._close_tail()
+        if isinstance(source, Shifted):
+            for sub, sub_start, sub_count, sub_shift in source._pieces(start, start + count):
+                self._at.append(self._size)
+                self._runs.append((sub, sub_start, sub_count, sub_shift + shift))
+                self._size += sub_count
+            return
+        self._at.append(self._size)
+        self._runs.append((source, start, count, shift))
+        self._size += count
+
+    def append(self, value: Any) -> None:
+        self._tail.append(value)
+        self._size += 1
+
+    def _pieces(self, start: int, stop: int) -> Iterator[tuple[Sequence[Any], int, int, int]]:
+        self._close_tail()
+        k = max(bisect_right(self._at, start) - 1, 0)
+        while k < len(self._runs) and self._at[k] < stop:
+            source, first, count, shift = self._runs[k]
+            lo, hi = max(start, self._at[k]), min(stop, self._at[k] + count)
+            if hi > lo:
+                yield source, first + lo - self._at[k], hi - lo, shift
+            k += 1
+
+    @staticmethod
+    def _moved(value: Any, shift: int) -> Any:
+        if not shift:
+            return value
+        return (value[0] + shift, value[1] + shift) if isinstance(value, tuple) else value + shift
+
+    @overload
+    def __getitem__(self, n: int) -> Any: ...
+    @overload
+    def __getitem__(self, n: slice) -> list[Any]: ...
+    def __getitem__(self, n: int | slice) -> Any:
+        if isinstance(n, slice):
+            return list(self)[n]
+        if n < 0:
+            n += self._size
+        if not 0 <= n < self._size:
+            raise IndexError(n)
+        self._close_tail()
+        k = bisect_right(self._at, n) - 1
+        source, first, _count, shift = self._runs[k]
+        return self._moved(source[first + n - self._at[k]], shift)
+
+    def __iter__(self) -> Iterator[Any]:
+        self._close_tail()
+        moved = self._moved
+        for source, first, count, shift in self._runs:
+            part = source[first:first + count]
+            yield from (part if not shift else (moved(v, shift) for v in part))
+
+    def __len__(self) -> int:
+        return self._size
+
+    def __eq__(self, other: object) -> bool:
+        return isinstance(other, Sequence) and list(self) == list(other)
+
+    __hash__ = None  # type: ignore[assignment]
+
+
+class StoredRows:
+    """The rows of a whole snapshot left in the store, read when a term is first asked for.
+
+    `one(n)` reads row n; `every()` reads them all at once (for the rare whole-table scan).
+    """
+
+    def __init__(self, one: Callable[[int], str], every: Callable[[], list[str]]) -> None:
+        self.one, self._every = one, every
+        self._all: list[str] | None = None
+
+    def row(self, n: int) -> str:
+        return self._all[n] if self._all is not None else self.one(n)
+
+    def every(self) -> list[str]:
+        if self._all is None:
+            self._all = self._every()
+        return self._all
+
+
+def _text_of(row: Any) -> str:
+    """A row's JSON text: it is a string, or (StoredRows, position)."""
+    return row if isinstance(row, str) else row[0].row(row[1])
+
+
 class TermTable(Mapping[str, Term]):
     """id -> Term, decoding stored rows only when a term is asked for.
 
     Cheap columns (parents, digest, obsolete flag, line) answer the questions a warm review
-    asks of every term; a full `Term` is built from its JSON row on first access.
+    asks of every term; a full `Term` is built from its JSON row on first access. A row is a
+    `Term`, its JSON text, or (StoredRows, position) while it is still in the store.
     """
 
-    def __init__(self, ids: list[str], parents: list[tuple[str, ...]], obsolete: list[bool],
-                 lines: list[tuple[int, int]], digests: list[str], rows: list[Any]) -> None:
+    def __init__(self, ids: list[str], parents: Iterable[tuple[str, ...]] | ParentColumn,
+                 obsolete: list[bool], lines: Sequence[tuple[int, int]], digests: list[str],
+                 rows: list[Any]) -> None:
         self.ids = ids
-        self.parents = parents
+        self.parents = parents if isinstance(parents, ParentColumn) else ParentColumn.of(parents)
         self.obsolete = obsolete
         self.lines = lines
         self.digests = digests
-        self.rows = rows  # Term, or a JSON string of the _ROW_FIELDS
+        self.rows = rows
         self.index = {tid: n for n, tid in enumerate(ids)}  # later duplicates win
 
     @classmethod
@@ -112,8 +253,13 @@ class TermTable(Mapping[str, Term]):
         n = self.index[tid]
         row = self.rows[n]
         if isinstance(row, Term):
+            line, end = self.lines[n]
+            if (row.line, row.end_line) != (line, end):
+                # A row copied from the base at another place: its lines are the column's.
+                row = row._replace(line=line, end_line=end)
+                self.rows[n] = row
             return row
-        data = json.loads(row)
+        data = json.loads(_text_of(row))
         term = Term(tid, data[0], self.parents[n], _tuples(data[1]), tuple(data[2]), self.obsolete[n],
                     tuple(data[3]), tuple(data[4]), _tuples(data[5]), tuple(data[6]),
                     _tuples(data[7]), _tuples(data[8]), self.lines[n][0], self.lines[n][1],
@@ -139,8 +285,13 @@ class TermTable(Mapping[str, Term]):
         text (the caller confirms on the decoded term).
         """
         written = {json.dumps(i)[1:-1] for i in ids}  # as the ASCII JSON rows spell them
+        # (StoredRows, position) rows: read each source whole at once, not one query per term.
+        for source in {row[0] for row in self.rows if type(row) is tuple}:  # a Term is a tuple too
+            source.every()
         for tid, n in self.index.items():
             row = self.rows[n]
+            if type(row) is tuple:
+                row = _text_of(row)
             if any(p in ids for p in self.parents[n]):
                 yield tid
             elif isinstance(row, Term):
@@ -154,15 +305,15 @@ class TermTable(Mapping[str, Term]):
         row = self.rows[self.index[tid]]
         if isinstance(row, Term):
             return json.dumps([getattr(row, f) for f in _ROW_FIELDS], separators=(",", ":"))
-        return str(row)
+        return _text_of(row)
 
 
 class Layout(NamedTuple):
     """Where each stanza of an OBO file starts (offset in the normalised text, 1-based line) and
     whether it is a Term stanza. Kept so the next revision can be compared block by block."""
 
-    starts: list[int]
-    lines: list[int]
+    starts: Sequence[int]
+    lines: Sequence[int]
     terms: list[bool]
 
 
@@ -220,7 +371,7 @@ class Snapshot:
     @cached_property
     def parent_ids(self) -> frozenset[str]:
         """Every id some term names as a parent (cheaper than the children map)."""
-        return frozenset(p for ps in self.terms.parents for p in ps)
+        return self.terms.parents.named()
 
     @cached_property
     def children(self) -> dict[str, tuple[str, ...]]:
@@ -301,7 +452,7 @@ class Snapshot:
         layout = self.layout
         return {"path": self.path, "blob": self.blob, "header": list(self.header),
                 "ids": "\n".join(ids),
-                "parents": "\n".join("\t".join(table.parents[n]) for n in pos),
+                "parents": "\n".join(table.parents.raw[n] for n in pos),
                 "obsolete": "".join("1" if table.obsolete[n] else "0" for n in pos),
                 "lines": [x for n in pos for x in table.lines[n]],
                 "digests": "\n".join(table.digests[n] for n in pos),
@@ -310,8 +461,10 @@ class Snapshot:
                 [layout.starts, layout.lines, "".join("1" if t else "0" for t in layout.terms)]}
 
     @classmethod
-    def from_json(cls, data: Mapping[str, Any], base: Snapshot | None = None) -> Snapshot:
-        """Rebuild a stored snapshot; a derived one needs its `base` (see `base_key`)."""
+    def from_json(cls, data: Mapping[str, Any], base: Snapshot | None = None,
+                  rows: StoredRows | None = None) -> Snapshot:
+        """Rebuild a stored snapshot; a derived one needs its `base` (see `base_key`), a whole
+        one stored without its rows needs them as `rows`."""
         if "segments" in data:
             if base is None:
                 raise ValueError("a derived snapshot needs its base")
@@ -320,20 +473,56 @@ class Snapshot:
             return derived(data["path"], data["blob"], tuple(tuple(h) for h in data["header"]),
                            base, segments)
         ids = data["ids"].split("\n") if data["ids"] else []
-        parents = [tuple(p.split("\t")) if p else () for p in data["parents"].split("\n")] if ids else []
+        parents = ParentColumn(data["parents"].split("\n") if ids else [])
         flat = data["lines"]
         lines = list(zip(flat[0::2], flat[1::2]))
+        if rows is not None:
+            kept: list[Any] = [(rows, n) for n in range(len(ids))]
+        else:
+            kept = data["rows"].split("\x1e") if ids else []
         table = TermTable(ids, parents, [c == "1" for c in data["obsolete"]], lines,
-                          data["digests"].split("\n") if ids else [],
-                          data["rows"].split("\x1e") if ids else [])
+                          data["digests"].split("\n") if ids else [], kept)
         stored = data.get("layout")
         layout = None if stored is None else Layout(stored[0], stored[1], [c == "1" for c in stored[2]])
         return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
+
+    def to_bytes(self) -> tuple[bytes, list[str] | None]:
+        """The store form as bytes, and the rows to store one per term (None when they are
+        inside). A derived snapshot is JSON with its new terms inside; a whole one is a JSON
+        head followed by its columns as plain text sections (decoding them as JSON strings
+        cost most of a warm load), its rows kept apart so a review reads only the few it
+        decodes."""
+        data = self.to_json()
+        if "segments" in data:
+            return b"J" + json.dumps(data, separators=(",", ":")).encode(), None
+        rows = data.pop("rows").split("\x1e") if data["ids"] else []
+        parts = [data.pop(name).encode("utf-8", "surrogatepass") for name in _SECTIONS]
+        data["sections"] = [len(p) for p in parts]
+        head = json.dumps(data, separators=(",", ":")).encode()
+        return b"S" + len(head).to_bytes(8, "little") + head + b"".join(parts), rows
+
+    @staticmethod
+    def unpack(raw: bytes) -> dict[str, Any]:
+        """What `to_bytes` wrote, as the mapping `from_json` and `base_key` read."""
+        if raw[:1] == b"J":
+            return dict(json.loads(raw[1:]))
+        if raw[:1] != b"S":
+            raise ValueError("not a stored snapshot")
+        size = int.from_bytes(raw[1:9], "little")
+        data = dict(json.loads(raw[9:9 + size]))
+        at = 9 + size
+        for name, length in zip(_SECTIONS, data.pop("sections")):
+            data[name] = raw[at:at + length].decode("utf-8", "surrogatepass")
+            at += length
+        return data
 
     @staticmethod
     def base_key(data: Mapping[str, Any]) -> tuple[str, str] | None:
         """(blob, path) of the base a stored derived snapshot needs, or None for a whole one."""
         return tuple(data["base"]) if "segments" in data else None  # type: ignore[return-value]
+
+
+_SECTIONS = ("ids", "parents", "obsolete", "digests")
 
 
 def _term_to_list(term: Term) -> list[Any]:
@@ -363,13 +552,13 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
         count += is_term
     first_term[-1] = count
     ids: list[str] = []
-    parents: list[tuple[str, ...]] = []
+    parents: list[str] = []  # tab-joined, as ParentColumn keeps them
     obsolete: list[bool] = []
-    lines: list[tuple[int, int]] = []
+    lines = Shifted()
     digests: list[str] = []
     rows: list[Any] = []
-    starts: list[int] = []
-    stanza_lines: list[int] = []
+    starts = Shifted()
+    stanza_lines = Shifted()
     flags: list[bool] = []
     copied: list[tuple[int, int, int]] = []
     for seg in segments:
@@ -379,19 +568,14 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
             if q > p:
                 copied.append((len(ids), p, q - p))
             ids += old.ids[p:q]
-            parents += old.parents[p:q]
+            parents += old.parents.raw[p:q]
             obsolete += old.obsolete[p:q]
             digests += old.digests[p:q]
-            if line_shift:
-                lines += [(a + line_shift, b + line_shift) for a, b in old.lines[p:q]]
-                rows += [r._replace(line=r.line + line_shift, end_line=r.end_line + line_shift)
-                         if isinstance(r, Term) else r for r in old.rows[p:q]]
-                stanza_lines += [x + line_shift for x in layout.lines[k:k + n]]
-            else:
-                lines += old.lines[p:q]
-                rows += old.rows[p:q]
-                stanza_lines += layout.lines[k:k + n]
-            starts += [x + shift for x in layout.starts[k:k + n]] if shift else layout.starts[k:k + n]
+            # A decoded Term row keeps its old lines; TermTable takes them from `lines`.
+            rows += old.rows[p:q]
+            lines.add(old.lines, p, q - p, line_shift)
+            stanza_lines.add(layout.lines, k, n, line_shift)
+            starts.add(layout.starts, k, n, shift)
             flags += layout.terms[k:k + n]
         else:
             _, offset, line, term = seg
@@ -400,12 +584,12 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
             flags.append(term is not None)
             if term is not None:
                 ids.append(term.id)
-                parents.append(term.parents)
+                parents.append("\t".join(term.parents))
                 obsolete.append(term.obsolete)
                 lines.append((term.line, term.end_line))
                 digests.append(term.digest)
                 rows.append(term)
-    snap = Snapshot(path, blob, TermTable(ids, parents, obsolete, lines, digests, rows), header,
+    snap = Snapshot(path, blob, TermTable(ids, ParentColumn(parents), obsolete, lines, digests, rows), header,
                     Layout(starts, stanza_lines, flags))
     snap.base = base
     snap.segments = segments
@@ -434,7 +618,7 @@ class Ontology:
             tables = [s.terms for s in self.snapshots]
             rows = [(t, n) for t in tables for n in t.index.values()]
             self.merged = Snapshot("", None, TermTable(
-                [t.ids[n] for t, n in rows], [t.parents[n] for t, n in rows],
+                [t.ids[n] for t, n in rows], ParentColumn([t.parents.raw[n] for t, n in rows]),
                 [t.obsolete[n] for t, n in rows], [t.lines[n] for t, n in rows],
                 [t.digests[n] for t, n in rows], [t.rows[n] for t, n in rows]))
 

@@ -7,7 +7,7 @@ from parentage.config import Config, load_config
 from parentage.errors import ParentageError
 from parentage.parse import decode, parse_ontology_text
 from parentage.revisions import EMPTY, Repository, Side
-from parentage.snapshot import MAX_DERIVED_DEPTH, Ontology, Snapshot
+from parentage.snapshot import MAX_DERIVED_DEPTH, Ontology, Snapshot, StoredRows
 from parentage.store import Store, default_store_path
 
 ONTOLOGY_SUFFIXES = (".obo", ".json")
@@ -59,26 +59,59 @@ class Workspace:
                 # Comparing with the base's text finds the unchanged runs without splitting them.
                 base_text = decode(self.repo.blob_bytes(base.blob), base.path)
             snap = parse_ontology_text(text, path, version.blob, base, base_text)
-            self.store.put("snapshot", f"{version.blob}:{path}", snap.to_json())
+            self._put(f"{version.blob}:{path}", snap)
             self._snapshots[(version.blob, path)] = snap
         return snap
+
+    def _put(self, key: str, snap: Snapshot) -> None:
+        columns, rows = snap.to_bytes()
+        if rows is not None:
+            # One entry per row, written before the columns that point at them.
+            self.store.put_many_bytes(f"snapshot-rows:{key}",
+                                      ((str(n), r.encode("utf-8", "surrogatepass"))
+                                       for n, r in enumerate(rows)), compress=False)
+        # A whole snapshot's columns are stored uncompressed: they are read on every warm run.
+        self.store.put_bytes("snapshot", key, columns, compress=rows is None)
+
+    def _rows(self, key: str) -> StoredRows:
+        namespace = f"snapshot-rows:{key}"
+
+        lost = ParentageError(f"the cache lost stored rows of {key.split(':', 1)[-1]}; delete "
+                              "the cache folder and run again")
+
+        def one(n: int) -> str:
+            raw = self.store.get_bytes(namespace, str(n))
+            if raw is None:
+                raise lost
+            return raw.decode("utf-8", "surrogatepass")
+
+        def every() -> list[str]:
+            found = self.store.get_all_bytes(namespace)
+            try:
+                return [found[str(n)].decode("utf-8", "surrogatepass") for n in range(len(found))]
+            except KeyError:
+                raise lost from None
+
+        return StoredRows(one, every)
 
     def _stored(self, blob: str, path: str, depth: int = 0) -> Snapshot | None:
         """A snapshot from this run or from the store; a derived one brings its base along."""
         cached = self._snapshots.get((blob, path))
         if cached is not None:
             return cached
-        stored = self.store.get("snapshot", f"{blob}:{path}")
-        if stored is None:
+        raw = self.store.get_bytes("snapshot", f"{blob}:{path}")
+        if raw is None:
             return None
         try:
+            stored = Snapshot.unpack(raw)
             base_key = Snapshot.base_key(stored)
             base = None
             if base_key is not None:
                 base = self._stored(*base_key, depth + 1) if depth < 2 * MAX_DERIVED_DEPTH else None
                 if base is None:
                     return None  # its base is gone from the store: parse again
-            snap = Snapshot.from_json(stored, base)
+            rows = self._rows(f"{blob}:{path}") if base_key is None and "rows" not in stored else None
+            snap = Snapshot.from_json(stored, base, rows)
         except (KeyError, TypeError, ValueError, IndexError):
             return None  # an entry of another layout: parse again and replace it
         self._snapshots[(blob, path)] = snap
