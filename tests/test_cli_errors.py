@@ -114,7 +114,8 @@ def test_console_script_errors_without_traceback(tmp_path: Path, args: list[str]
     assert "Traceback" not in done.stderr
 
 
-@pytest.mark.parametrize("build", ["full", "incremental"])
+# "compared": the head built from the cached base by comparing the two texts.
+@pytest.mark.parametrize("build", ["full", "compared"])
 def test_malformed_obo_names_the_original_line(git_repo: GitRepo, build: str,
                                                capsys: pytest.CaptureFixture[str]) -> None:
     if build == "full":  # a first commit: nothing to build on

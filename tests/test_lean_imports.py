@@ -16,7 +16,7 @@ from pathlib import Path
 import pytest
 from conftest import GitRepo  # the shared fixtures: real git repositories
 
-HEAVY = ("rdkit", "sklearn", "scipy", "pronto")
+HEAVY = ("rdkit", "sklearn", "scipy", "pronto", "git")  # git: gitpython (the CLI is used)
 
 WRAPPER = """
 import json, sys

@@ -11,8 +11,6 @@ import re
 from collections.abc import Iterable, Sequence
 from typing import Any, NamedTuple
 
-import fastobo
-
 from parentage.errors import ParentageError
 from parentage.progress import progress
 from parentage.snapshot import Term
@@ -211,6 +209,8 @@ def _load(text: str, path: str, line_of: Sequence[int]) -> list[Any]:
     `line_of[i]` is the original line of line i+1 of `text` (they differ when only some
     stanzas are parsed).
     """
+    import fastobo  # only when something is parsed: a warm run with stored snapshots needs none
+
     try:
         return list(fastobo.loads(text, threads=1))
     except SyntaxError as exc:
@@ -255,6 +255,8 @@ def header_pairs(header: str, path: str) -> tuple[tuple[str, str], ...]:
     if not any(line.strip() for _, line in numbered):
         return ()
     text = "\n".join(line for _, line in numbered) + "\n"
+    import fastobo
+
     try:
         doc = fastobo.loads(text, threads=1)
     except SyntaxError as exc:

@@ -8,6 +8,7 @@ from __future__ import annotations
 import hashlib
 import os
 import re
+import subprocess
 from functools import lru_cache
 from typing import NamedTuple
 
@@ -78,37 +79,68 @@ def match_glob(pattern: str, path: str) -> bool:
     return bool(_glob_regex(pattern).match(path))
 
 
-class Repository:
-    def __init__(self, start: str = ".") -> None:
-        import git  # gitpython
+class GitFailed(ParentageError):
+    pass
 
-        self._git = git
-        try:
-            self.repo = git.Repo(start, search_parent_directories=True)
-        except (git.InvalidGitRepositoryError, git.NoSuchPathError):
+
+def _run_git(args: list[str], cwd: str) -> subprocess.CompletedProcess[bytes]:
+    try:
+        return subprocess.run(["git", *args], check=False, cwd=cwd, capture_output=True)
+    except FileNotFoundError:
+        raise ParentageError("git failed: is it installed and on PATH?") from None
+    except NotADirectoryError:
+        raise ParentageError(f"{os.path.abspath(cwd)}: not a folder") from None
+
+
+class Repository:
+    """One git repository, read through the git command line.
+
+    gitpython is not used here: importing it costs ~0.2 s, a fifth of a commit hook's budget,
+    and every call below is one git command anyway.
+    """
+
+    def __init__(self, start: str = ".") -> None:
+        if not os.path.isdir(start):
             raise ParentageError(f"{os.path.abspath(start)}: not inside a git repository; run "
-                                 "parentage from the ontology's repository") from None
-        except git.GitCommandNotFound:
-            raise ParentageError("git failed: is it installed and on PATH?") from None
-        if self.repo.bare:
-            raise ParentageError(f"{self.repo.git_dir}: a bare repository has no work tree; "
-                                 "run parentage in a checkout")
-        self.root = str(self.repo.working_tree_dir)
-        self.git_dir = str(self.repo.git_dir)
+                                 "parentage from the ontology's repository")
+        found = _run_git(["rev-parse", "--is-bare-repository", "--absolute-git-dir"], start)
+        if found.returncode != 0:
+            raise ParentageError(f"{os.path.abspath(start)}: not inside a git repository; run "
+                                 "parentage from the ontology's repository")
+        bare, git_dir = found.stdout.decode("utf-8", "surrogateescape").split("\n")[:2]
+        if bare.strip() == "true":
+            raise ParentageError(f"{git_dir}: a bare repository has no work tree; run "
+                                 "parentage in a checkout")
+        top = _run_git(["rev-parse", "--show-toplevel"], start)
+        if top.returncode != 0:
+            raise ParentageError(f"{git_dir}: a bare repository has no work tree; run "
+                                 "parentage in a checkout")
+        self.root = top.stdout.decode("utf-8", "surrogateescape").strip()
+        self.git_dir = git_dir.strip()
+
+    def git(self, *args: str) -> str:
+        """Run git in the work tree; its standard output, or a one-line error."""
+        done = _run_git(list(args), self.root)
+        if done.returncode != 0:
+            detail = done.stderr.decode("utf-8", "replace").strip().splitlines()
+            raise GitFailed(f"git {args[0]} failed: {detail[0] if detail else 'no message'}")
+        return done.stdout.decode("utf-8", "surrogateescape")
+
+    def _quiet(self, *args: str) -> str:
+        """Standard output of a git command, or "" when it fails."""
+        done = _run_git(list(args), self.root)
+        return done.stdout.decode("utf-8", "surrogateescape") if done.returncode == 0 else ""
 
     # -- resolving ---------------------------------------------------------------------------
     def _is_shallow(self) -> bool:
         return os.path.exists(os.path.join(self.git_dir, "shallow"))
 
     def has_head(self) -> bool:
-        return self.repo.head.is_valid()
+        return bool(self._quiet("rev-parse", "--verify", "--quiet", "HEAD^{commit}").strip())
 
     def commit(self, rev: str) -> Side:
-        try:
-            sha = self.repo.git.rev_parse("--verify", "--quiet", "--end-of-options", rev + "^{commit}")
-        except self._git.GitCommandError:
-            sha = ""
-        if not sha:
+        sha = self._quiet("rev-parse", "--verify", "--quiet", "--end-of-options", rev + "^{commit}")
+        if not sha.strip():
             if rev == "HEAD" and not self.has_head():
                 return Side(EMPTY, None, "empty (no commits yet)")
             hint = ("; this is a shallow clone: fetch more history (git fetch --unshallow, "
@@ -119,14 +151,13 @@ class Repository:
     def merge_base(self, a: Side, b: Side) -> Side:
         if a.commit is None or b.commit is None:
             return a
-        try:
-            base = self.repo.git.merge_base(a.commit, b.commit)
-        except self._git.GitCommandError:
+        base = self._quiet("merge-base", a.commit, b.commit).strip()
+        if not base:
             hint = (" this is a shallow clone: fetch more history (git fetch --unshallow, or "
                     "fetch-depth: 0 in actions/checkout)") if self._is_shallow() else \
                 " the two revisions share no history."
-            raise ParentageError(f"no merge base for {a.name}...{b.name}:{hint}") from None
-        return Side("commit", base.strip(), f"merge-base({a.name}, {b.name})")
+            raise ParentageError(f"no merge base for {a.name}...{b.name}:{hint}")
+        return Side("commit", base, f"merge-base({a.name}, {b.name})")
 
     def resolve(self, spec: str | None, staged: bool = False, worktree: bool = False) -> tuple[Side, Side]:
         """(base, head) for `A..B`, `A...B`, a single revision (rev..work tree), --staged, --worktree."""
@@ -151,10 +182,10 @@ class Repository:
         """Every file git tracks at `side` (repository-relative, '/'-separated)."""
         if side.kind == EMPTY:
             return []
-        if side.kind == "commit":
-            out = self.repo.git.ls_tree("-r", "--name-only", "-z", side.commit)
+        if side.kind == "commit" and side.commit is not None:
+            out = self.git("ls-tree", "-r", "--name-only", "-z", side.commit)
         else:
-            out = self.repo.git.ls_files("-z")
+            out = self.git("ls-files", "-z")
         paths = [p for p in out.split("\0") if p]
         if side.kind == WORKTREE:
             paths = [p for p in paths if os.path.isfile(os.path.join(self.root, p))]
@@ -178,22 +209,28 @@ class Repository:
             return FileVersion(path, blob_sha(data), data)
         if side.kind == INDEX:
             # ":(literal)" so a name with [ or * is not taken as a pattern.
-            line = self.repo.git.ls_files("-s", "--", f":(literal){path}")
+            line = self.git("ls-files", "-s", "--", f":(literal){path}")
             if not line.strip():
                 return FileVersion(path, None, None)
             sha = line.split()[1]
         else:
-            try:
-                sha = self.repo.git.rev_parse("--verify", "--quiet", f"{side.commit}:{path}")
-            except self._git.GitCommandError:
-                return FileVersion(path, None, None)
-            if not sha:
+            sha = self._quiet("rev-parse", "--verify", "--quiet", f"{side.commit}:{path}")
+            if not sha.strip():
                 return FileVersion(path, None, None)
         sha = sha.strip()
         return FileVersion(path, sha, None if sha_only else self.blob_bytes(sha))
 
     def blob_bytes(self, sha: str) -> bytes:
-        return bytes(self.repo.odb.stream(bytes.fromhex(sha)).read())
+        done = _run_git(["cat-file", "blob", sha], self.root)
+        if done.returncode != 0:
+            raise ParentageError(f"git cat-file failed for blob {sha}: "
+                                 f"{done.stderr.decode('utf-8', 'replace').strip()[:200]}")
+        return done.stdout
+
+    def git_path(self, name: str) -> str:
+        """`git rev-parse --git-path NAME`, absolute."""
+        found = self.git("rev-parse", "--git-path", name).strip()
+        return found if os.path.isabs(found) else os.path.join(self.root, found)
 
 
 def build_repository(dest: str, commits: list[tuple[str, str, dict[str, bytes]]]) -> str:

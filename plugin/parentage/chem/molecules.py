@@ -20,16 +20,21 @@ Conventions of the computed values:
 from __future__ import annotations
 
 import contextlib
+import functools
 import io
 import re
 import threading
 from collections.abc import Iterable, Iterator
-from typing import Any, NamedTuple
-
-from rdkit import Chem, rdBase
-from rdkit.Chem import rdinchi, rdMolDescriptors
+from typing import TYPE_CHECKING, Any, NamedTuple
 
 from parentage.config import Limits
+
+if TYPE_CHECKING:
+    from rdkit import Chem
+
+# RDKit is imported inside the functions that compute (0.15-0.2 s): facts read back from the
+# store, limits and formulas as written need none of it, so a commit whose structures are all
+# known to the store never loads it.
 from parentage.progress import progress
 from parentage.store import Store
 
@@ -77,6 +82,8 @@ def captured_log() -> Iterator[list[str]]:
     the block runs. Routing is set on every entry (it costs well under a microsecond) because
     other code may have pointed RDKit's log elsewhere. The swap is process-wide, hence the lock.
     """
+    from rdkit import rdBase
+
     lines: list[str] = []
     buffer = io.StringIO()
     with _LOG_LOCK:
@@ -144,9 +151,11 @@ def _limit_problem(text: str, kind: str, limits: Limits) -> str | None:
 
 # -- parsing ----------------------------------------------------------------------------------
 
-Parsed = tuple[Chem.Mol | None, str | None, tuple[str, ...]]  # (molecule, error, log lines)
+Parsed = tuple["Chem.Mol | None", str | None, tuple[str, ...]]  # (molecule, error, log lines)
 
 def _sanitised(mol: Chem.Mol, what: str) -> str | None:
+    from rdkit import Chem
+
     try:
         Chem.SanitizeMol(mol)
     except (Chem.rdchem.MolSanitizeException, ValueError, RuntimeError) as exc:
@@ -159,6 +168,8 @@ def parse_smiles(smiles: str, limits: Limits = DEFAULT_LIMITS) -> Parsed:
     problem = _limit_problem(smiles, "smiles", limits)
     if problem:
         return None, problem, ()
+    from rdkit import Chem
+
     error: str | None = None
     with captured_log() as log:
         mol = Chem.MolFromSmiles(smiles, sanitize=False)
@@ -181,6 +192,9 @@ def parse_inchi(inchi: str, limits: Limits = DEFAULT_LIMITS) -> Parsed:
         return None, problem, ()
     if not inchi.startswith("InChI="):
         return None, "InChI cannot be read: it must start with 'InChI='", ()
+    from rdkit import Chem
+    from rdkit.Chem import rdinchi
+
     error: str | None = None
     with captured_log() as log:
         # Sanitised by us, not inside the call, so a valence problem is a message, not a raise.
@@ -200,6 +214,9 @@ def parse_inchi(inchi: str, limits: Limits = DEFAULT_LIMITS) -> Parsed:
 
 
 def _facts(mol: Chem.Mol, warnings: tuple[str, ...]) -> MolFacts:
+    from rdkit import Chem
+    from rdkit.Chem import rdinchi, rdMolDescriptors
+
     with captured_log() as log:
         smiles = Chem.MolToSmiles(mol)
         inchi, code, message, _inchi_log, _aux = rdinchi.MolToInchi(mol, "")
@@ -277,7 +294,11 @@ def analyse_many(structures: Iterable[str], limits: Limits = DEFAULT_LIMITS, sto
 
 # -- formulas as written ----------------------------------------------------------------------
 
-_ELEMENTS = frozenset(Chem.GetPeriodicTable().GetElementSymbol(n) for n in range(1, 119))
+@functools.cache
+def _elements() -> frozenset[str]:
+    from rdkit import Chem
+
+    return frozenset(Chem.GetPeriodicTable().GetElementSymbol(n) for n in range(1, 119))
 _ALIASES = {"D": "H", "T": "H", "R": "*"}  # isotopes count as their element; R: any group
 _TOKEN = re.compile(r"([A-Z][a-z]?|\*)(\d*)|(\()|(\))(\d*)")
 # (pattern, whether the sign comes first); tried in order, the ambiguous form last.
@@ -310,7 +331,7 @@ def _parse_part(text: str) -> dict[str, int] | None:
         symbol, count, opening, _closing, multiplier = match.groups()
         if symbol:
             symbol = _ALIASES.get(symbol, symbol)
-            if symbol not in _ELEMENTS and symbol != "*":
+            if symbol not in _elements() and symbol != "*":
                 return None
             stack[-1][symbol] = stack[-1].get(symbol, 0) + (int(count) if count else 1)
         elif opening:

@@ -34,7 +34,7 @@ def hook_source(name: str) -> bytes:
 
 def hooks_dir(repo: Repository) -> Path:
     """The folder git runs hooks from; a relative core.hooksPath is relative to the work tree."""
-    found = repo.repo.git.rev_parse("--git-path", "hooks").strip()
+    found = repo.git("rev-parse", "--git-path", "hooks").strip()
     return Path(repo.root, found)
 
 
