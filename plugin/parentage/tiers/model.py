@@ -25,7 +25,8 @@ from parentage.tiers import Verdict
 
 NAMESPACE = "model"
 LATEST = "model-latest"  # settings + paths -> key of the newest model, for reuse across commits
-FORMAT = 2
+FORMAT = 3
+OOF_FLOOR = 1e-3  # out-of-fold probabilities at or below this are not stored (every `low` is above)
 
 
 class Member(NamedTuple):
@@ -72,6 +73,12 @@ class ClassFigures(NamedTuple):
     recall: float
     f1: float
     support: int  # members of the class among the judged terms
+
+
+def bits_hash(bits: np.ndarray) -> int:
+    """A 64-bit digest of a fingerprint: a training member's stored figures hold while it matches."""
+    return int.from_bytes(hashlib.blake2b(np.asarray(bits, dtype=np.uint32).tobytes(),
+                                          digest_size=8).digest(), "little")
 
 
 def _sigmoid(x: np.ndarray) -> np.ndarray:
@@ -236,14 +243,31 @@ class Neighbours:
         return index, best
 
 
+class Decisions(NamedTuple):
+    """A batch's decisions as arrays: rows are terms, columns classes (`known`: with ancestors)."""
+
+    closed: np.ndarray  # (rows, known) predicted, closed upward, disjointness resolved
+    strong: np.ndarray  # (rows, known) confident enough to give a class the curation does not
+    against: np.ndarray  # (rows, classes) probability at or below the class's `low`
+    unfamiliar: np.ndarray  # (rows,) below min_similarity to every reference member
+    unsure: np.ndarray  # (rows,) nothing predicted, yet some class close to its threshold
+    doubtful: np.ndarray  # (rows, classes) the classes that make a row unsure
+
+    @property
+    def abstains(self) -> np.ndarray:
+        return self.unfamiliar | self.unsure
+
+
 class Model:
     """A trained model tier. Build with `from_bytes` or `model_train.train`.
 
-    Arrays (never pickled): `weights` (models, size, classes) with model 0 the full one and
-    model f+1 the one that never saw fold f; `bias`, `platt` (a, b per class), `thresholds`,
-    `low` (at or below: opposes) and `high` (at or above: supports a class the curation does
-    not give the term); `member_ids` and `digests` as byte strings; `ref_fold`; and the
-    neighbour search arrays of `Neighbours.index`.
+    Arrays (never pickled): `weights` (size, classes, float16) and `bias` of the model for
+    terms outside training (the mean of the fold models); `oof_ptr`, `oof_class`, `oof_prob`,
+    each training member's out-of-fold probabilities above OOF_FLOOR (CSR, float16), valid while
+    its fingerprint still hashes to `member_hash`; `platt` (a, b per class), `thresholds`, `low`
+    (at or below: opposes) and `high` (at or above: supports a class the curation does not give
+    the term); `member_ids` and `digests` as byte strings; `ref_fold`; and the neighbour search
+    arrays of `Neighbours.index`.
     """
 
     def __init__(self, arrays: Mapping[str, np.ndarray], meta: Mapping[str, Any]) -> None:
@@ -262,6 +286,7 @@ class Model:
         self._neighbours: Neighbours | None = None
         self._member_ids: list[str] | None = None
         self._fold_of: dict[str, int] | None = None
+        self._row_of: dict[str, int] | None = None
 
     # Member ids are stored as one byte-string array: decoded only when asked.
     @property
@@ -275,6 +300,12 @@ class Model:
         if self._fold_of is None:
             self._fold_of = dict(zip(self.member_ids, self.arrays["ref_fold"].tolist()))
         return self._fold_of
+
+    @property
+    def row_of(self) -> dict[str, int]:
+        if self._row_of is None:
+            self._row_of = {t: i for i, t in enumerate(self.member_ids)}
+        return self._row_of
 
     # -- storage: one .npz (arrays plus a JSON metadata array), never pickle -------------------
     def to_bytes(self) -> bytes:
@@ -307,21 +338,23 @@ class Model:
                        disjoint: Sequence[tuple[str, str]]) -> None:
         self._ancestors = dict(ancestors)
         self._disjoint = list(disjoint)
-        # Known classes: the model's own first, then their ancestors; as matrices, so that
-        # closing predictions upward is one product for a whole batch.
+        # Known classes: the model's own first, then their ancestors. Closing predictions
+        # upward is one gather per batch: `_up_cols[j]` lists class j and its ancestors.
         known = list(self.classes)
         known += sorted(set().union(*self._ancestors.values()) - set(known)) if self._ancestors else []
         self._known = known
         pos = {c: k for k, c in enumerate(known)}
-        self._up = np.zeros((len(self.classes), len(known)), dtype=np.float32)  # class -> itself + ancestors
+        k = len(self.classes)
+        self._up_ptr = np.zeros(k + 1, dtype=np.int64)
+        cols: list[int] = []
         for j, c in enumerate(self.classes):
-            self._up[j, j] = 1.0
-            for a in self._ancestors.get(c, ()):
-                self._up[j, pos[a]] = 1.0
-        self._strict_up = np.zeros((len(known), len(known)), dtype=np.float32)  # known -> ancestors
-        for c, anc in self._ancestors.items():
-            for a in anc:
-                self._strict_up[pos[c], pos[a]] = 1.0
+            cols += [j, *(pos[a] for a in self._ancestors.get(c, ()))]
+            self._up_ptr[j + 1] = len(cols)
+        self._up_cols = np.array(cols, dtype=np.int64)
+        self._up_owner = np.repeat(np.arange(k), np.diff(self._up_ptr))
+        strict = [(pos[c], pos[a]) for c, anc in self._ancestors.items() for a in anc]
+        self._strict_child = np.array([s[0] for s in strict], dtype=np.int64)
+        self._strict_parent = np.array([s[1] for s in strict], dtype=np.int64)
         self._disjoint_pos = [(pos[a], pos[b]) for a, b in self._disjoint if a in pos and b in pos]
 
     # -- staleness ----------------------------------------------------------------------------
@@ -347,29 +380,49 @@ class Model:
         return self.changed_members(members) < config.model.retrain_after
 
     # -- scoring --------------------------------------------------------------------------------
-    def probabilities(self, bits: Sequence[np.ndarray], which: np.ndarray,
-                      chunk: int = 2048) -> np.ndarray:
-        """Per-class probabilities; `which` picks the model (0 full, f+1 the fold-f model)."""
-        weights, bias = self.arrays["weights"], self.arrays["bias"]
-        m, k = len(bits), len(self.classes)
-        which = np.asarray(which, dtype=np.int64)
-        scores = bias[which].astype(np.float32)
-        rows = weights.reshape(-1, k)
-        for start in range(0, m, chunk):
+    def scores(self, bits: Sequence[np.ndarray], chunk: int = 1024) -> np.ndarray:
+        """Raw linear scores of the model for terms outside training."""
+        weights, k = self.arrays["weights"], len(self.classes)
+        out = np.tile(self.arrays["bias"].astype(np.float32), (len(bits), 1))
+        for start in range(0, len(bits), chunk):
             part = bits[start:start + chunk]
             lengths = np.array([len(b) for b in part], dtype=np.int64)
             if not lengths.sum():
                 continue
             flat = np.concatenate(part).astype(np.int64)
-            models = np.repeat(which[start:start + len(part)], lengths)
-            # One gather of (bit, class) weight rows and one sum per query: no per-model pass.
-            gathered = rows[models * self.settings.size + flat]
+            # One gather of (bit, class) weight rows and one sum per query.
+            gathered = weights[flat].astype(np.float32) if k else np.zeros((len(flat), 0), np.float32)
             starts = np.concatenate(([0], np.cumsum(lengths)[:-1]))
             sums = np.add.reduceat(gathered, np.minimum(starts, len(flat) - 1), axis=0)
             sums[lengths == 0] = 0.0
-            scores[start:start + len(part)] += sums
-        platt = self.arrays["platt"]
-        return _sigmoid(scores * platt[:, 0] + platt[:, 1])
+            out[start:start + len(part)] += sums
+        return out
+
+    def probabilities(self, bits: Sequence[np.ndarray], ids: Sequence[str] | None = None) -> np.ndarray:
+        """Per-class probabilities. A training member (by id, fingerprint unchanged) gets the
+        out-of-fold probabilities of the fold model that never saw it; any other term the full
+        model's."""
+        rows = np.full(len(bits), -1, dtype=np.int64)
+        if ids is not None:
+            row_of, hashes = self.row_of, self.arrays["member_hash"]
+            for i, tid in enumerate(ids):
+                r = row_of.get(tid)
+                if r is not None and hashes[r] == bits_hash(bits[i]):
+                    rows[i] = r
+        out = np.zeros((len(bits), len(self.classes)), dtype=np.float32)
+        fresh = np.flatnonzero(rows < 0)
+        if len(fresh):
+            platt = self.arrays["platt"]
+            out[fresh] = _sigmoid(self.scores([bits[i] for i in fresh.tolist()]) * platt[:, 0] + platt[:, 1])
+        known = np.flatnonzero(rows >= 0)
+        if len(known):
+            ptr = self.arrays["oof_ptr"]
+            starts, ends = ptr[rows[known]], ptr[rows[known] + 1]
+            n = ends - starts
+            take = np.repeat(starts - np.cumsum(n) + n, n) + np.arange(int(n.sum()))
+            owner = np.repeat(known, n)
+            out[owner, self.arrays["oof_class"][take]] = self.arrays["oof_prob"][take]
+        return out
 
     def neighbours(self) -> Neighbours:
         if self._neighbours is None:
@@ -400,10 +453,19 @@ class Model:
         """The strongest prediction that implies `cls`."""
         return max(s for c, s in strength.items() if c == cls or cls in self._ancestors.get(c, ()))
 
+    def _up(self, above: np.ndarray) -> np.ndarray:
+        """Rows of (rows, classes) flags closed upward into (rows, known)."""
+        out = np.zeros((len(above), len(self._known)), dtype=bool)
+        r, j = np.nonzero(above)
+        if len(r):
+            n = self._up_ptr[j + 1] - self._up_ptr[j]
+            take = np.repeat(self._up_ptr[j] - np.cumsum(n) + n, n) + np.arange(int(n.sum()))
+            out[np.repeat(r, n), self._up_cols[take]] = True
+        return out
+
     def _closed(self, probs: np.ndarray) -> np.ndarray:
         """Per row, the known classes predicted (closed upward, disjointness resolved)."""
-        above = (probs >= self.arrays["thresholds"]).astype(np.float32)
-        closed = (above @ self._up) > 0
+        closed = self._up(probs >= self.arrays["thresholds"])
         clash = np.zeros(len(probs), dtype=bool)
         for a, b in self._disjoint_pos:
             clash |= closed[:, a] & closed[:, b]
@@ -411,6 +473,22 @@ class Model:
             kept, _ = self.decide(probs[r])
             closed[r] = [c in kept for c in self._known]
         return closed
+
+    def decisions(self, probs: np.ndarray, sims: np.ndarray) -> Decisions:
+        """The whole batch's decisions, in numpy."""
+        thresholds, low, high = self.arrays["thresholds"], self.arrays["low"], self.arrays["high"]
+        k = len(self.classes)
+        closed = self._closed(probs)
+        strong = np.zeros(closed.shape, dtype=bool)
+        strong[:, :k] = closed[:, :k] & (probs >= high)
+        # An ancestor of a confident class is confident too.
+        r, c = np.nonzero(strong[:, self._strict_child] if len(self._strict_child) else strong[:, :0])
+        strong[r, self._strict_parent[c]] = True
+        strong &= closed
+        doubtful = (probs > low) & (probs < thresholds) & (probs >= 0.5 * thresholds)
+        unsure = ~closed.any(axis=1) & doubtful.any(axis=1)
+        unfamiliar = sims < self.settings.min_similarity
+        return Decisions(closed, strong, probs <= low, unfamiliar, unsure & ~unfamiliar, doubtful)
 
     # -- the review's entry point ----------------------------------------------------------------
     def predict(self, term_smiles: Mapping[str, str], store: Store | None = None,
@@ -424,8 +502,11 @@ class Model:
         under only at a probability of at least the class's `high` (or for an ancestor of such
         a class); its own classes are supported at the decision threshold. Without `asserted`
         every predicted class is supported and every model class at or below `low` opposed.
-        With `evidence`, supporting verdicts that a review may report (every one, or with
-        `asserted` those outside the term's classes) carry the bits and atoms behind them.
+        A term the model is unsure of (nothing predicted, some class close to its threshold)
+        gets a term-wide abstention and still its opposing verdicts; an unfamiliar structure
+        gets the abstention alone. With `evidence`, supporting verdicts that a review may
+        report (every one, or with `asserted` those outside the term's classes) carry the bits
+        and atoms behind them.
         """
         from parentage.chem.fingerprints import cached_bits, fingerprint_bits
 
@@ -451,20 +532,19 @@ class Model:
         rids = [ids[i] for i in readable]
         fold_of = self.fold_of
         folds = np.array([fold_of.get(t, -1) for t in rids], dtype=np.int64)
-        probs = self.probabilities(bits, folds + 1)
+        probs = self.probabilities(bits, rids)
         near, sims = self.neighbours().nearest(bits, folds)
         wanted = None if asserted is None else [set(asserted.get(t, ())) for t in rids]
         rows = self.verdict_rows(rids, probs, sims, near, wanted)
         if evidence:
             from parentage.chem.fingerprints import bit_atoms
 
-            weights = self.arrays["weights"]
             for r, verdicts in enumerate(rows):
                 reported = [v for v in verdicts if v.opinion == "supports" and "probability" in v.evidence
                             and (wanted is None or v.cls not in wanted[r])]
                 if reported:
                     rows[r] = self._with_bits(verdicts, {v.cls for v in reported}, smiles[readable[r]],
-                                              bits[r], weights[int(folds[r]) + 1], bit_atoms)
+                                              bits[r], bit_atoms)
         out.update(zip(rids, rows))
         return {tid: out[tid] for tid in ids}
 
@@ -472,76 +552,68 @@ class Model:
                      wanted: Sequence[set[str]] | None, opposing: bool = True) -> list[list[Verdict]]:
         """Verdicts of each row of probabilities; decisions for the whole batch in numpy.
 
-        `opposing=False` leaves out the opposing verdicts (figures count only supports).
+        `opposing=False` leaves out the opposing verdicts.
         """
-        thresholds, low, high = self.arrays["thresholds"], self.arrays["low"], self.arrays["high"]
-        classes, known, k = self.classes, self._known, len(self.classes)
-        closed = self._closed(probs)
-        doubtful = (probs > low) & (probs < thresholds) & (probs >= 0.5 * thresholds)
-        strong = np.zeros(closed.shape, dtype=bool)
-        strong[:, :k] = closed[:, :k] & (probs >= high)
-        # A class the curation does not give a term is supported only when it, or a class it is
-        # an ancestor of, is confidently predicted.
-        strong |= ((strong.astype(np.float32) @ self._strict_up) > 0) & closed
-        against = probs <= low
-        if not opposing:
-            against[:] = False
+        thresholds, low = self.arrays["thresholds"], self.arrays["low"]
+        classes, known = self.classes, self._known
+        d = self.decisions(probs, sims)
         member_ids = self.member_ids
         min_sim = self.settings.min_similarity
         out: list[list[Verdict]] = []
-        rounded_p = np.round(probs.astype(np.float64), 4)
         rounded_t = [round(float(t), 4) for t in thresholds]
+        low_f = [float(x) for x in low]
+        closed_rows = [np.flatnonzero(row).tolist() for row in d.closed]
+        against_rows = [np.flatnonzero(row).tolist() for row in d.against] if opposing else [[]] * len(ids)
         for r, tid in enumerate(ids):
             similarity = float(sims[r])
             nearest = member_ids[int(near[r])] if near[r] >= 0 else None
             base = {"nearest": nearest, "similarity": round(similarity, 3)}
-            if similarity < min_sim:
+            if d.unfamiliar[r]:
                 out.append([Verdict(tid, "", "model", "abstains", {
                     "reason": f"unlike every training member: the nearest ({nearest}) has Tanimoto "
                               f"similarity {similarity:.2f} < model.min_similarity {min_sim}", **base})])
                 continue
             mine = wanted[r] if wanted is not None else None
-            row = closed[r]
-            chosen = [known[c] for c in np.flatnonzero(row).tolist()]
-            if mine is not None:
-                keep = strong[r]
-                chosen = [c for c, kc in zip(chosen, np.flatnonzero(row).tolist())
-                          if c in mine or keep[kc]]
-            if not row.any() and doubtful[r].any():
-                unsure = [classes[j] for j in np.flatnonzero(doubtful[r]).tolist()]
-                out.append([Verdict(tid, "", "model", "abstains", {
+            verdicts = []
+            if d.unsure[r]:
+                unsure = [classes[j] for j in np.flatnonzero(d.doubtful[r]).tolist()]
+                verdicts.append(Verdict(tid, "", "model", "abstains", {
                     "reason": "no class is confident: " + ", ".join(
                         f"{c} p={probs[r, self._class_index[c]]:.2f} < "
                         f"{thresholds[self._class_index[c]]:.2f}" for c in unsure[:3]),
-                    "classes": unsure, **base})])
-                continue
+                    "classes": unsure, **base}))
+            cols = closed_rows[r]
+            if mine is not None:
+                keep = d.strong[r]
+                cols = [c for c in cols if known[c] in mine or keep[c]]
+            chosen = [known[c] for c in cols]
             chosen_set = set(chosen)
             implied = {a for c in chosen for a in self._ancestors.get(c, ())}
-            verdicts = []
             for cls in sorted(chosen, key=lambda c: (c in implied, c)):
                 ev: dict[str, Any] = {"specific": cls not in implied, **base}
                 j = self._class_index.get(cls)
                 if j is not None:
-                    ev.update(probability=float(rounded_p[r, j]), threshold=rounded_t[j])
+                    ev.update(probability=round(float(probs[r, j]), 4), threshold=rounded_t[j])
                 else:
                     ev["implied_by"] = sorted(c for c in chosen if cls in self._ancestors.get(c, ()))
                 verdicts.append(Verdict(tid, cls, "model", "supports", ev))
-            for j in np.flatnonzero(against[r]).tolist():
+            for j in against_rows[r]:
                 cls = classes[j]
                 if cls in chosen_set or (mine is not None and cls not in mine):
                     continue
                 verdicts.append(Verdict(tid, cls, "model", "opposes", {
-                    "probability": float(probs[r, j]), "threshold": float(thresholds[j]),
-                    "low": float(low[j]), **base}))
+                    "probability": float(probs[r, j]), "threshold": rounded_t[j],
+                    "low": low_f[j], **base}))
             out.append(verdicts)
         return out
 
     def _with_bits(self, verdicts: list[Verdict], wanted: set[str], smiles: str, bits: np.ndarray,
-                   weights: np.ndarray, bit_atoms: Any) -> list[Verdict]:
+                   bit_atoms: Any) -> list[Verdict]:
         """Add the bits that raised each wanted class most, and the atoms that set them."""
+        weights = self.arrays["weights"]
         top: dict[str, list[int]] = {}
         for cls in wanted:
-            w = weights[bits.astype(np.int64), self._class_index[cls]]
+            w = weights[bits.astype(np.int64), self._class_index[cls]].astype(np.float32)
             order = np.argsort(-w)[:3]
             top[cls] = [int(bits[k]) for k in order if w[k] > 0]
         atoms = bit_atoms(smiles, self.settings, {b for bs in top.values() for b in bs})
