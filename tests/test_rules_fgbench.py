@@ -100,8 +100,11 @@ def test_screens_never_reject_a_match(subset: list) -> None:
     patterns = [compile_smarts(t) for t in texts]
     table = ScreenTable(patterns)
     mols = [(m.smiles, Chem.MolFromSmiles(m.smiles)) for m in subset[:600]]
-    for smiles in (True, False):  # facts read from the SMILES text, and from the molecule
-        passing = table.passing([facts_of(rd, text if smiles else None, table.bond_types)
+    # Facts from the formula and the SMILES text, from the molecule alone, and the quick form
+    # (the screened elements counted in the text).
+    for smiles, quick in ((True, False), (False, False), (True, True)):
+        passing = table.passing([facts_of(rd, text if smiles else None, table.bond_types,
+                                          table.elements_of if quick else None)
                                  for text, rd in mols])
         for row, (text, rd) in enumerate(mols):
             for col, pattern in enumerate(patterns):
@@ -114,19 +117,23 @@ def test_screens_never_reject_a_match(subset: list) -> None:
 
 
 def test_screen_facts_bound_the_true_counts(subset: list) -> None:
+    # True counts walked atom by atom and bond by bond with RDKit.
+    everything = range(119)
     for mol in subset:
         rd = Chem.MolFromSmiles(mol.smiles)
-        for smiles in (mol.smiles, None):
-            facts = facts_of(rd, smiles)
-            true_atoms: dict[int, int] = {}
-            for atom in rd.GetAtoms():
-                key = 2 * atom.GetAtomicNum() + atom.GetIsAromatic()
-                true_atoms[key] = true_atoms.get(key, 0) + 1
+        true_atoms: dict[int, int] = {}
+        for atom in rd.GetAtoms():
+            key = 2 * atom.GetAtomicNum() + atom.GetIsAromatic()
+            true_atoms[key] = true_atoms.get(key, 0) + 1
+        elements = {a.GetSymbol() for a in rd.GetAtoms()} | (
+            {"H"} if any(a.GetTotalNumHs() for a in rd.GetAtoms()) else set())
+        # Formula and text, molecule alone, and the quick form (every element from the text).
+        for smiles, quick in ((mol.smiles, None), (None, None), (mol.smiles, everything)):
+            facts = facts_of(rd, smiles, elements_of=quick)
             for key, count in true_atoms.items():
-                assert facts.atom_counts.get(key, 0) >= count, (mol.smiles, key)
+                assert facts.atom_counts.get(key, 0) >= count, (mol.smiles, key, quick is None)
             for kind in (2, 3):
                 true = sum(1 for b in rd.GetBonds() if int(b.GetBondType()) == kind)
                 assert facts.bond_counts[kind] >= true, (mol.smiles, kind)
             assert facts.charge == Chem.GetFormalCharge(rd)
-            assert facts.elements == {a.GetSymbol() for a in rd.GetAtoms()} | (
-                {"H"} if any(a.GetTotalNumHs() for a in rd.GetAtoms()) else set())
+            assert facts.elements == (elements if quick is None else frozenset())

@@ -21,13 +21,14 @@ import json
 import multiprocessing
 import os
 import re
+import sys
 import time
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Mapping, Sequence
 from multiprocessing.connection import wait
 from typing import Any, NamedTuple
 
 import numpy as np
-from rdkit import Chem
+from rdkit import Chem, rdBase
 from rdkit.Chem import rdFMCS, rdMolDescriptors
 
 from parentage.chem.molecules import captured_log, parse_smiles
@@ -47,7 +48,7 @@ _ALIPHATIC = _ATOM_KEYS - _AROMATIC
 _BOND_PAIRS = {"SingleOrAromaticBond": frozenset({1, 12}), "SingleOrDoubleBond": frozenset({1, 2}),
                "DoubleOrAromaticBond": frozenset({2, 12})}
 _MAX_RECURSION = 3  # nesting depth of $() whose needs are followed
-_CHUNK = 32  # structures read and screened together
+_CHUNK = 64  # structures read and screened together
 _SKELETON_SHARE = 2  # patterns that must share a skeleton before it is searched first
 _PARALLEL_FROM = 256  # structures from which the matching is split over several workers
 
@@ -332,44 +333,20 @@ class Facts(NamedTuple):
 
 
 _FORMULA_PART = re.compile(r"([A-Z][a-z]?|\*)(\d*)")
+_FORMULA_CHARGE = re.compile(r"[+-]\d*$")  # RDKit writes a net charge last: "+", "-2"
 _Z_OF = {**{s: z for z, s in enumerate(_SYMBOLS) if z}, "*": 0}
-_BRACKET_ATOM = re.compile(r"\[[0-9]*([A-Za-z][a-z]?|\*)[^\]]*\]")
-_BARE_ATOM = re.compile(r"Cl|Br|[BCNOSPFI]|[bcnops]|\*")
+_DROP_LOWER = str.maketrans("", "", "abcdefghijklmnopqrstuvwxyz")
+_NUMBERED_ATOM = re.compile(r"\[[^\]]*#")  # "[#6]": an atom given by its atomic number
+_MAX_NEED_ELEMENTS = 16  # a need spread over more elements than this screens little; dropped
 _BOND_QUERIES = {2: Chem.MolFromSmarts("*=*"), 3: Chem.MolFromSmarts("*#*")}
 _ANY_AROMATIC = Chem.MolFromSmarts("a")
-
-
-def _text_counts(smiles: str) -> tuple[dict[int, int], dict[int, int]] | None:
-    """(atomic number -> atoms, bond type -> at most this many) read from a SMILES text.
-
-    Every atom of the text is an atom of the molecule (RDKit only drops written hydrogens),
-    so heavy-atom counts are exact. A double bond is written '=' or comes from kekulising
-    atoms written aromatic, so '=' plus the aromatic-written atoms bounds the double bonds;
-    a triple bond is always written '#'.
-    """
-    text = smiles.split()[0] if smiles.strip() else ""
-    counts: dict[int, int] = {}
-    lower = 0
-    for match in _BRACKET_ATOM.finditer(text):
-        symbol = match.group(1)
-        z = _Z_OF.get(symbol[0].upper() + symbol[1:])
-        if z is None:
-            return None
-        counts[z] = counts.get(z, 0) + 1
-        lower += symbol[0].islower()
-    outside = _BRACKET_ATOM.sub("", text)
-    for symbol in _BARE_ATOM.findall(outside):
-        z = _Z_OF[symbol.capitalize()]
-        counts[z] = counts.get(z, 0) + 1
-        lower += symbol.islower()
-    return counts, {2: outside.count("=") + lower, 3: outside.count("#")}
 
 
 def _formula_counts(mol: Chem.Mol) -> dict[int, int] | None:
     """Atomic number -> atoms from RDKit's formula (hydrogen: the total, implicit ones too)."""
     counts: dict[int, int] = {}
     formula = rdMolDescriptors.CalcMolFormula(mol)
-    for symbol, digits in _FORMULA_PART.findall(formula.rstrip("+-0123456789")):
+    for symbol, digits in _FORMULA_PART.findall(_FORMULA_CHARGE.sub("", formula)):
         z = _Z_OF.get(symbol)
         if z is None:
             return None
@@ -377,25 +354,73 @@ def _formula_counts(mol: Chem.Mol) -> dict[int, int] | None:
     return counts
 
 
-def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int] = (2, 3)) -> Facts:
+def _text_bonds(smiles: str) -> dict[int, int]:
+    """Bond type -> at most this many bonds, read from a SMILES text.
+
+    A double bond is written '=' or comes from kekulising atoms written aromatic (lower
+    case), so '=' plus the lower-case letters bounds the double bonds; a triple bond is
+    always written '#' (which may also start an atomic number in brackets: more, not fewer).
+    """
+    text = smiles.split()[0] if smiles.strip() else ""
+    lower = len(text) - len(text.translate(_DROP_LOWER))
+    return {2: text.count("=") + lower, 3: text.count("#")}
+
+
+def _text_atoms(text: str, zs: Iterable[int]) -> dict[int, int]:
+    """Atomic number -> at most this many atoms, for the elements `zs`, from a SMILES text.
+
+    Every atom is written with its element's symbol, capitalised or (aromatic) in lower case,
+    so counting both spellings can only count too many: "Cl" counts towards C as well, "[Sc]"
+    towards S and aromatic c. The caller makes sure no atom is written by number ("[#6]").
+    """
+    counts = {}
+    for z in zs:
+        symbol = _SYMBOLS[z]
+        n = text.count(symbol) + text.count(symbol.lower()) if z else text.count("*")
+        if n:
+            counts[z] = n
+    return counts
+
+
+def _maybe_aromatic(mol: Chem.Mol, text: str | None) -> bool:
+    """False only when the molecule has no aromatic atom. A text with a lower-case organic
+    letter is taken to have one without asking RDKit (a looser screen, never a wrong one)."""
+    if text is not None and any(letter in text for letter in "bcnops"):
+        return True
+    return rdMolDescriptors.CalcNumAromaticRings(mol) > 0 or mol.HasSubstructMatch(_ANY_AROMATIC)
+
+
+def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int] = (2, 3),
+             elements_of: Iterable[int] | None = None) -> Facts:
     """Screen facts of one structure; every count is at least the true count.
 
-    Walking RDKit's atom objects from Python costs more than most searches, so the counts
-    come from the SMILES text the molecule was read from (or RDKit's formula), checked
-    against the molecule's heavy-atom count. Aromatic and aliphatic atoms of an element are
-    each bounded by the element's count, aromatic ones only where the molecule has any.
-    Bond types in `bond_types` are bounded as the text allows or counted by search; every
-    other type is bounded by the number of bonds.
+    Element counts come from RDKit's formula (one call, exact), or from the atoms where the
+    formula has a symbol we do not know. Given `elements_of` (atomic numbers) and the SMILES
+    text, only those elements are counted, from the text, and `elements` is left empty: the
+    quick form for screens when no rule asks which elements are present. Aromatic and
+    aliphatic atoms of an element are each bounded by the element's count, aromatic ones only
+    where the molecule may have any. Bond types in `bond_types` are bounded by the SMILES
+    text the molecule was read from, or counted by search; every other type is bounded by the
+    number of bonds.
     """
-    atoms, heavy = mol.GetNumAtoms(), mol.GetNumHeavyAtoms()
-    from_text = _text_counts(smiles) if smiles else None
-    counts = from_text[0] if from_text else _formula_counts(mol)
-    if counts is None or sum(n for z, n in counts.items() if z > 1) != heavy:
-        counts, from_text = {}, None
-        for atom in mol.GetAtoms():
-            z = atom.GetAtomicNum()
-            counts[z] = counts.get(z, 0) + 1
-    aromatic = rdMolDescriptors.CalcNumAromaticRings(mol) > 0 or mol.HasSubstructMatch(_ANY_AROMATIC)
+    atoms = mol.GetNumAtoms()
+    text = (smiles.split()[0] if smiles.strip() else "") if smiles else None
+    if elements_of is not None and text is not None and not ("#" in text and _NUMBERED_ATOM.search(text)):
+        counts: dict[int, int] | None = _text_atoms(text, elements_of)
+        exact = False
+    else:
+        formula, exact = _formula_counts(mol), True
+        if formula is not None and sum(n for z, n in formula.items() if z > 1) == mol.GetNumHeavyAtoms():
+            counts = formula
+        else:
+            counts = {}
+            for atom in mol.GetAtoms():
+                z = atom.GetAtomicNum()
+                counts[z] = counts.get(z, 0) + 1
+            hydrogens = sum(a.GetTotalNumHs() for a in mol.GetAtoms())
+            if hydrogens:
+                counts[1] = counts.get(1, 0) + hydrogens
+    aromatic = _maybe_aromatic(mol, text)
     keys: dict[int, int] = {}
     for z, n in counts.items():
         keys[2 * z] = min(n, atoms)
@@ -403,16 +428,15 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
             keys[2 * z + 1] = min(n, atoms)
     total = mol.GetNumBonds()
     bonds = dict.fromkeys(_BOND_KEYS, total)
+    from_text = _text_bonds(text) if text is not None else None
     for kind in bond_types:
-        if from_text is not None and kind in from_text[1]:
-            bonds[kind] = min(total, from_text[1][kind])
+        if from_text is not None and kind in from_text:
+            bonds[kind] = min(total, from_text[kind])
         elif kind in _BOND_QUERIES and total:
             bonds[kind] = len(mol.GetSubstructMatches(_BOND_QUERIES[kind], uniquify=True,
                                                       maxMatches=total))
-    elements = {_SYMBOLS[z] for z, n in counts.items() if n and z != 1}
-    if mol.GetNumAtoms(onlyExplicit=False) > heavy + counts.get(0, 0):
-        elements.add("H")  # hydrogens, implicit or written
-    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), frozenset(elements))
+    elements = frozenset(_SYMBOLS[z] for z, n in counts.items() if n) if exact else frozenset()
+    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements)
 
 
 class ScreenTable:
@@ -426,7 +450,9 @@ class ScreenTable:
         bond_needs: dict[Need, int] = {}
         uses: list[tuple[list[int], list[int]]] = []
         for pattern in patterns:
-            a = [atom_needs.setdefault(n, len(atom_needs)) for n in pattern.screen.atom_needs]
+            # Dropping a need only lets more through: the screen stays sound.
+            a = [atom_needs.setdefault(n, len(atom_needs)) for n in pattern.screen.atom_needs
+                 if len({k // 2 for k in n[0]}) <= _MAX_NEED_ELEMENTS]
             b = [bond_needs.setdefault(n, len(bond_needs)) for n in pattern.screen.bond_needs]
             uses.append((a, b))
         self.atom_matrix = np.zeros((len(_ATOM_KEYS), len(atom_needs)), dtype=np.int32)
@@ -450,6 +476,8 @@ class ScreenTable:
         order = sorted(shared)
         self.skeletons = [Chem.MolFromSmarts(t) for t in order]
         self.skeleton_of = [order.index(t) if t in shared else None for t in texts]
+        # Elements some need counts: the only ones a quick screen must count.
+        self.elements_of = tuple(sorted({k // 2 for keys, _ in atom_needs for k in keys}))
         # Bond types worth counting: those some need is made of alone.
         self.bond_types = tuple(sorted({k for keys, _ in bond_needs for k in keys
                                         if keys <= _BOND_QUERIES.keys()}))
@@ -498,61 +526,110 @@ def read_structure(item: str | Chem.Mol, limits: Limits) -> tuple[Chem.Mol | Non
     return mol, error
 
 
+def _read_quickly(item: str | Chem.Mol, limits: Limits) -> tuple[Chem.Mol | None, str | None]:
+    """`read_structure` with one RDKit call for the common case, in a worker whose RDKit log
+    goes nowhere. A text no longer than `limits.max_atoms` characters cannot hold more heavy
+    atoms than that (each takes at least one character), so no count is needed first; any
+    text that fails, or may be over a limit, takes the careful path for its message."""
+    if isinstance(item, Chem.Mol):
+        return item, None
+    if item.strip() and len(item) <= min(limits.max_atoms, limits.max_structure_chars):
+        mol = Chem.MolFromSmiles(item)
+        if mol is not None:
+            return mol, None
+    return read_structure(item, limits)
+
+
 # -- bounded matching of many patterns over many structures ----------------------------------
 
 class Outcome(NamedTuple):
     """The matches of the wanted patterns on one structure, or why there are none."""
 
-    matches: dict[int, tuple[Atoms, ...]]  # pattern index -> matches; absent: no match
+    hits: frozenset[int]  # the pattern indices that match
     checked: frozenset[int]  # the pattern indices that were looked at
     charge: int = 0
     elements: frozenset[str] = frozenset()
     error: str | None = None  # unreadable structure, time limit, or a matching failure
+    matches: Mapping[int, Sequence[Sequence[int]]] = {}  # atoms of each hit, when evidence was asked
+    evidence: bool = False  # whether `matches` holds the atoms of every hit
 
 
-def _prepare(item: str | Chem.Mol, limits: Limits,
-             bond_types: Iterable[int]) -> tuple[Chem.Mol | None, Facts | None, str | None]:
+def _failed(error: str, evidence: bool = False) -> Outcome:
+    return Outcome(frozenset(), frozenset(), error=error, evidence=evidence)
+
+
+def _prepare(item: str | Chem.Mol, limits: Limits, table: ScreenTable, quick: bool,
+             elements: bool) -> tuple[Chem.Mol | None, Facts | None, str | None]:
     try:
-        mol, error = read_structure(item, limits)
+        mol, error = _read_quickly(item, limits) if quick else read_structure(item, limits)
         if mol is None:
             return None, None, error or "structure unreadable"
-        return mol, facts_of(mol, item if isinstance(item, str) else None, bond_types), None
+        return mol, facts_of(mol, item if isinstance(item, str) else None, table.bond_types,
+                             None if elements else table.elements_of), None
     except Exception as exc:  # noqa: BLE001 - one bad structure must not stop the rest
         return None, None, f"structure unreadable: {type(exc).__name__}: {exc}"
 
 
-def _matches(index: int, mol: Chem.Mol, facts: Facts, ok: Any, patterns: Sequence[Pattern],
-             table: ScreenTable, chosen: list[int], params: Chem.SubstructMatchParameters) -> list[Any]:
-    found = []
-    skeletons: dict[int, bool] = {}
-    try:
-        for p in chosen:
-            if not ok[p]:
-                continue
-            s = table.skeleton_of[p]
-            if s is not None:
-                if s not in skeletons:
-                    skeletons[s] = mol.HasSubstructMatch(table.skeletons[s])
-                if not skeletons[s]:
-                    continue
-            hits = mol.GetSubstructMatches(patterns[p].query, params)
-            if hits:
-                found.append([p, [list(h) for h in hits]])
-    except Exception as exc:  # noqa: BLE001 - reported for this structure only
-        return [index, [], [], 0, [], f"matching failed: {type(exc).__name__}: {exc}"]
-    return [index, found, chosen, facts.charge, sorted(facts.elements), None]
+class _Search:
+    """What every structure's search shares: queries, screens, limits, what to keep."""
+
+    def __init__(self, patterns: Sequence[Pattern], limits: Limits, evidence: bool) -> None:
+        self.queries = [p.query for p in patterns]
+        self.table = ScreenTable(patterns)
+        self.evidence = evidence
+        self.all_params = _params(limits)
+        self.one_params = _params(Limits(max_matches=1))
+        self._wanted: dict[int, tuple[Any, np.ndarray]] = {}  # id of a wanted set -> (it, mask)
+
+    def mask(self, wanted: Iterable[int]) -> np.ndarray:
+        """The wanted patterns as a row of booleans; structures mostly share one object."""
+        known = self._wanted.get(id(wanted))
+        if known is None or known[0] is not wanted:
+            row = np.zeros(len(self.queries), dtype=bool)
+            row[sorted(set(wanted))] = True
+            known = self._wanted[id(wanted)] = (wanted, row)
+        return known[1]
+
+    def row(self, index: int, mol: Chem.Mol, facts: Facts, candidates: list[int]) -> list[Any]:
+        """The structure's result as plain values (hits, atoms or None, charge, elements)."""
+        hits: list[int] = []
+        atoms: list[Any] = []
+        skeletons: dict[int, bool] = {}
+        table = self.table
+        try:
+            for p in candidates:
+                s = table.skeleton_of[p]
+                if s is not None:
+                    if s not in skeletons:
+                        skeletons[s] = mol.HasSubstructMatch(table.skeletons[s], self.one_params)
+                    if not skeletons[s]:
+                        continue
+                if self.evidence:
+                    found = mol.GetSubstructMatches(self.queries[p], self.all_params)
+                    if found:
+                        hits.append(p)
+                        atoms.append(found)  # tuples travel as JSON lists
+                elif mol.HasSubstructMatch(self.queries[p], self.one_params):
+                    hits.append(p)
+        except Exception as exc:  # noqa: BLE001 - reported for this structure only
+            return [index, [], None, 0, "", f"matching failed: {type(exc).__name__}: {exc}"]
+        return [index, hits, atoms if self.evidence else None, facts.charge,
+                ",".join(sorted(facts.elements)), None]
 
 
 def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
          wanted: Sequence[Iterable[int]], limits: Limits, progress: Any,
-         send: Callable[[list[list[Any]]], None]) -> None:
+         send: Callable[[list[list[Any]]], None], evidence: bool = True, quick: bool = False,
+         elements: bool = True) -> None:
     """Match in chunks: read a chunk, screen it at once, then search each structure.
 
     `progress` holds (index, start time) of the structure being worked on; its time carries
-    over from reading to searching, so one bound covers both.
+    over from reading to searching, so one bound covers both. With `evidence`, every match
+    of each matching pattern is kept (up to `limits.max_matches`); without, one is enough.
+    Without `elements`, which elements a structure has is not found out.
     """
-    params = _params(limits)
-    table = ScreenTable(patterns)
+    search = _Search(patterns, limits, evidence)
+    table = search.table
     for at in range(0, len(todo), _CHUNK):
         chunk = todo[at:at + _CHUNK]
         ready: list[tuple[int, Chem.Mol, Facts, float]] = []
@@ -564,35 +641,66 @@ def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequenc
             progress[2] = 0.0  # reading
             progress[1] = started
             progress[0] = float(index)
-            mol, facts, error = _prepare(items[index], limits, table.bond_types)
+            mol, facts, error = _prepare(items[index], limits, table, quick, elements)
             if mol is None or facts is None:
-                rows.append([index, [], sorted(set(wanted[index])), 0, [], error])
+                rows.append([index, [], None, 0, "", error])
             else:
                 ready.append((index, mol, facts, time.monotonic() - started))
-        ok = table.passing([r[2] for r in ready]) if ready and patterns else None
+        if ready and patterns:
+            ok = table.passing([r[2] for r in ready])
+            ok &= np.stack([search.mask(wanted[r[0]]) for r in ready])
         for row, (index, mol, facts, spent) in enumerate(ready):
             progress[2] = 1.0  # searching
             progress[1] = time.monotonic() - spent
             progress[0] = float(index)
-            chosen = sorted(set(wanted[index]))
-            rows.append(_matches(index, mol, facts, ok[row] if ok is not None else (),
-                                 patterns, table, chosen, params))
+            candidates = np.flatnonzero(ok[row]).tolist() if patterns else []
+            rows.append(search.row(index, mol, facts, candidates))
         send(rows)
 
 
-def _decode(row: list[Any]) -> tuple[int, Outcome]:
-    index, found, chosen, charge, elements, error = row
-    matches = {p: tuple(tuple(h) for h in hits) for p, hits in found}
-    return index, Outcome(matches, frozenset(chosen), charge, frozenset(elements), error)
+class _Decoder:
+    """Rows from a worker as Outcomes; the sets most structures share are made once."""
+
+    def __init__(self, wanted: Sequence[Iterable[int]], evidence: bool) -> None:
+        self.wanted, self.evidence = wanted, evidence
+        self._checked: dict[int, tuple[Any, frozenset[int]]] = {}
+        self._elements: dict[str, frozenset[str]] = {}
+
+    def __call__(self, row: list[Any]) -> tuple[int, Outcome]:
+        index, hits, atoms, charge, elements, error = row
+        asked = self.wanted[index]
+        known = self._checked.get(id(asked))
+        if known is None or known[0] is not asked:
+            known = self._checked[id(asked)] = (asked, frozenset(asked))
+        symbols = self._elements.get(elements)
+        if symbols is None:
+            symbols = self._elements[elements] = frozenset(elements.split(",")) - {""}
+        matches = dict(zip(hits, atoms)) if atoms is not None else {}
+        return index, Outcome(frozenset(hits), known[1], charge, symbols, error, matches, self.evidence)
+
+
+class _Quiet:
+    """A stderr that drops what is written: a worker's RDKit log lines are not wanted."""
+
+    def write(self, text: str) -> int:
+        return len(text)
+
+    def flush(self) -> None:
+        pass
 
 
 def _worker(todo: list[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
-            wanted: Sequence[Iterable[int]], limits: Limits, progress: Any, conn: Any) -> None:
+            wanted: Sequence[Iterable[int]], limits: Limits, evidence: bool, elements: bool,
+            progress: Any, conn: Any) -> None:
     # The forked worker shares the parent's heap; a cyclic collection would walk (and so
     # copy) all of it, and the worker's own garbage is freed by reference counting.
     gc.disable()
+    # RDKit logs through Python's stderr, dropped here; the careful parse that explains a
+    # bad structure captures its own lines.
+    rdBase.LogToPythonStderr()
+    sys.stderr = _Quiet()  # type: ignore[assignment]
     _run(todo, items, patterns, wanted, limits, progress,
-         lambda rows: conn.send_bytes(json.dumps(rows).encode()))
+         lambda rows: conn.send_bytes(json.dumps(rows).encode()), evidence, True, elements)
     conn.send_bytes(json.dumps([None]).encode())
     conn.close()
 
@@ -609,6 +717,7 @@ class _Lane:
 
     def __init__(self, ctx: Any, todo: list[int], job: tuple[Any, ...], bound: float) -> None:
         self.ctx, self.todo, self.job, self.bound = ctx, todo, job, bound
+        self.decode = _Decoder(job[2], job[4])
         self.done = not todo
         if todo:
             self._start()
@@ -616,9 +725,10 @@ class _Lane:
     def _start(self) -> None:
         self.progress = self.ctx.RawArray("d", [-1.0, time.monotonic(), 0.0])
         self.receiver, sender = self.ctx.Pipe(duplex=False)
-        items, patterns, wanted, limits = self.job
+        items, patterns, wanted, limits, evidence, elements = self.job
         self.proc = self.ctx.Process(target=_worker, daemon=True,
-                                     args=(self.todo, items, patterns, wanted, limits, self.progress, sender))
+                                     args=(self.todo, items, patterns, wanted, limits, evidence,
+                                           elements, self.progress, sender))
         self.proc.start()
         sender.close()
 
@@ -640,7 +750,7 @@ class _Lane:
                 if row is None:
                     finished = True
                 else:
-                    index, outcome = _decode(row)
+                    index, outcome = self.decode(row)
                     results[index] = outcome
         elif self.proc.sentinel in ready:
             stuck = (int(self.progress[0]), "matching failed: the matching process stopped unexpectedly")
@@ -654,11 +764,11 @@ class _Lane:
             return
         self.stop()
         if stuck is not None and stuck[0] >= 0 and stuck[0] not in results:
-            results[stuck[0]] = Outcome({}, frozenset(), error=stuck[1])
+            results[stuck[0]] = _failed(stuck[1], self.job[4])
         self.todo = [i for i in self.todo if i not in results]
         if self.todo and stuck is None:  # pragma: no cover - ended without every result
             for i in self.todo:
-                results[i] = Outcome({}, frozenset(), error="matching failed: no result")
+                results[i] = _failed("matching failed: no result", self.job[4])
             self.todo = []
         if self.todo:
             self._start()
@@ -679,12 +789,15 @@ def default_workers(structures: int) -> int:
 
 def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
                wanted: Sequence[Iterable[int]], limits: Limits = DEFAULT_LIMITS,
-               workers: int | None = None) -> list[Outcome]:
+               workers: int | None = None, evidence: bool = True,
+               elements: bool = True) -> list[Outcome]:
     """For each structure (SMILES or molecule), the matches of the patterns `wanted[i]` names.
 
     A structure whose reading and searching together take longer than `limits.rule_seconds`
     gets an Outcome with an error and no matches. `workers` processes share the structures
-    (default: `default_workers`).
+    (default: `default_workers`). With `evidence`, each hit's matched atoms are kept;
+    without, only which patterns match (each search stops at its first match). Without
+    `elements`, each Outcome's `elements` is left empty (no rule asks), which saves a step.
     """
     if len(items) != len(wanted):
         raise ValueError("one set of wanted patterns per structure")
@@ -692,13 +805,14 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
     todo = list(range(len(items)))
     ctx = _fork_context()
     if ctx is None or not todo:  # pragma: no cover - no fork: in process, maxMatches only
+        decode = _Decoder(wanted, evidence)
         _run(todo, items, patterns, wanted, limits, [0.0, 0.0, 0.0],
-             lambda rows: results.update(_decode(r) for r in rows))
+             lambda rows: results.update(decode(r) for r in rows), evidence, False, elements)
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
     count = max(1, min(workers or default_workers(len(todo)), len(todo)))
     size = -(-len(todo) // count)
-    job = (items, patterns, wanted, limits)
+    job = (items, patterns, wanted, limits, evidence, elements)
     lanes = [_Lane(ctx, todo[k * size:(k + 1) * size], job, bound) for k in range(count)]
     try:
         while not all(lane.done for lane in lanes):

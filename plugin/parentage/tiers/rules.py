@@ -258,6 +258,7 @@ class RuleSet:
                 self._trigger_by_pattern.setdefault(pattern, []).append(r)
         self._cache: dict[tuple[Limits, str], Outcome] = {}
         self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
+        self._elements = any(r.has_elements or r.lacks_elements for r in self.rules)
 
     def __len__(self) -> int:
         return len(self.rules)
@@ -275,11 +276,12 @@ class RuleSet:
 
     # -- matching ---------------------------------------------------------------------------
     def outcomes(self, structures: Sequence[Any], wanted_rules: Sequence[Iterable[int]],
-                 limits: Limits) -> list[Outcome]:
+                 limits: Limits, evidence: bool = True) -> list[Outcome]:
         """Matches of the patterns of the wanted rules on each structure.
 
         Results for SMILES texts are kept, so a structure seen before (at the other end of a
-        review, or by an earlier call) is only searched for patterns not yet tried.
+        review, or by an earlier call) is only searched for patterns not yet tried. Without
+        `evidence` only which patterns match is found, not their atoms.
         """
         results: list[Outcome | None] = [None] * len(structures)
         todo: list[int] = []
@@ -291,6 +293,8 @@ class RuleSet:
             if wanted is None:
                 wanted = pattern_sets[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
             hit = self._cache.get((limits, item)) if isinstance(item, str) else None
+            if hit is not None and evidence and not hit.evidence and hit.error is None:
+                hit = None  # found without atoms: search again for them
             missing = wanted - hit.checked if hit is not None else wanted
             if hit is not None and (hit.error is not None or not missing):
                 results[i] = hit
@@ -300,13 +304,16 @@ class RuleSet:
         if todo:
             if len(self._cache) > _CACHE_LIMIT:
                 self._cache.clear()
-            fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits, self.workers)
+            fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits, self.workers,
+                               evidence, self._elements)
             for i, outcome in zip(todo, fresh):
                 item = structures[i]
                 old = self._cache.get((limits, item)) if isinstance(item, str) else None
-                if old is not None and outcome.error is None:
-                    outcome = outcome._replace(matches={**old.matches, **outcome.matches},
-                                               checked=old.checked | outcome.checked)
+                if old is not None and outcome.error is None and old.evidence >= outcome.evidence:
+                    outcome = outcome._replace(hits=old.hits | outcome.hits,
+                                               matches={**old.matches, **outcome.matches},
+                                               checked=old.checked | outcome.checked,
+                                               evidence=old.evidence and outcome.evidence)
                 if isinstance(item, str):
                     self._cache[(limits, item)] = outcome
                 results[i] = outcome
@@ -315,10 +322,10 @@ class RuleSet:
     def holds_quickly(self, index: int, outcome: Outcome) -> bool:
         """`holds(index, outcome).holds`, without gathering the evidence."""
         any_of, all_of, none_of = self._parts[index]
-        matches = outcome.matches
-        if any_of and not any(p in matches for p in any_of):
+        hits = outcome.hits
+        if any_of and hits.isdisjoint(any_of):
             return False
-        if any(p not in matches for p in all_of) or any(p in matches for p in none_of):
+        if not hits.issuperset(all_of) or not hits.isdisjoint(none_of):
             return False
         rule = self.rules[index]
         if rule.net_charge and outcome.charge not in rule.net_charge:
@@ -326,11 +333,43 @@ class RuleSet:
         return all(e in outcome.elements for e in rule.has_elements) and \
             not any(e in outcome.elements for e in rule.lacks_elements)
 
+    def holds_table(self, outcomes: Sequence[Outcome]) -> Any:
+        """(structures x rules) booleans: `holds_quickly` of every rule on every outcome."""
+        import numpy as np
+
+        hit = np.zeros((len(outcomes), len(self.patterns)), dtype=bool)
+        for row, outcome in enumerate(outcomes):
+            if outcome.hits:
+                hit[row, list(outcome.hits)] = True
+        charges = np.array([o.charge for o in outcomes], dtype=np.int64)
+        symbols = {e for r in self.rules for e in r.has_elements + r.lacks_elements}
+        present = {e: np.array([e in o.elements for o in outcomes], dtype=bool) for e in symbols}
+        out = np.ones((len(outcomes), len(self.rules)), dtype=bool)
+        for index, rule in enumerate(self.rules):
+            any_of, all_of, none_of = (list(part) for part in self._parts[index])
+            column = out[:, index]
+            if any_of:
+                column &= hit[:, any_of].any(axis=1)
+            if all_of:
+                column &= hit[:, all_of].all(axis=1)
+            if none_of:
+                column &= ~hit[:, none_of].any(axis=1)
+            if rule.net_charge:
+                column &= np.isin(charges, rule.net_charge)
+            for symbol in rule.has_elements:
+                column &= present[symbol]
+            for symbol in rule.lacks_elements:
+                column &= ~present[symbol]
+        return out
+
     def holds(self, index: int, outcome: Outcome) -> Holds:
         """Whether rule `index` holds, given the structure's matches."""
         rule = self.rules[index]
 
-        def found(text: str) -> tuple[tuple[int, ...], ...]:
+        def found(text: str) -> bool:
+            return self.pattern_of[text] in outcome.hits
+
+        def where(text: str) -> tuple[tuple[int, ...], ...]:
             return outcome.matches.get(self.pattern_of[text], ())
 
         smarts: list[str] = []
@@ -341,15 +380,15 @@ class RuleSet:
                 return Holds(False, rule.any_of, (), "no any_of pattern matches")
             smarts += hits
             for t in hits:
-                atoms += found(t)
+                atoms += where(t)
         for text in rule.all_of:
             if not found(text):
                 return Holds(False, (text,), (), "an all_of pattern does not match")
             smarts.append(text)
-            atoms += found(text)
+            atoms += where(text)
         for text in rule.none_of:
             if found(text):
-                return Holds(False, (text,), found(text), "a none_of pattern matches")
+                return Holds(False, (text,), where(text), "a none_of pattern matches")
         if rule.net_charge and outcome.charge not in rule.net_charge:
             return Holds(False, (), (), f"net charge {outcome.charge} is not "
                                         f"{' or '.join(str(c) for c in rule.net_charge)}")
@@ -392,7 +431,7 @@ class RuleSet:
             found: dict[str, int] = {}
             if outcome.error is None:
                 maybe = set(self._unindexed)
-                for pattern in outcome.matches:
+                for pattern in outcome.hits:
                     maybe.update(self._trigger_by_pattern.get(pattern, ()))
                 for r in sorted(maybe):
                     if self.holds_quickly(r, outcome):
@@ -507,29 +546,38 @@ def structured_terms(ontology: Ontology, config: Config) -> dict[str, str]:
 
 def rule_agreement(ruleset: RuleSet, ontology: Ontology, config: Config, examples: int = 3,
                    warnings: Sequence[str] = ()) -> AgreementReport:
-    """Every rule over every structured term, against the asserted classification."""
+    """Every rule over every structured term, against the asserted classification.
+
+    Only whether each pattern matches is searched for (no atoms), and the counts are taken
+    over a (terms x rules) table at once.
+    """
+    import numpy as np
+
     smiles = structured_terms(ontology, config)
     ids = sorted(smiles)
     everything = range(len(ruleset))
-    outcomes = ruleset.outcomes([smiles[t] for t in ids], [everything] * len(ids), config.limits)
+    outcomes = ruleset.outcomes([smiles[t] for t in ids], [everything] * len(ids), config.limits,
+                                evidence=False)
     unchecked = tuple((t, o.error) for t, o in zip(ids, outcomes) if o.error is not None)
     good = [(t, o) for t, o in zip(ids, outcomes) if o.error is None]
-    lineage = {t: ontology.ancestors(t) for t, _ in good}
+    holds = ruleset.holds_table([o for _, o in good])
+    column = {cls: k for k, cls in enumerate(ruleset.classes())}
+    inside_class = np.zeros((len(good), len(column)), dtype=bool)
+    for row, (t, _) in enumerate(good):
+        for cls in ontology.ancestors(t):
+            k = column.get(cls)
+            if k is not None:
+                inside_class[row, k] = True
+    good_ids = [t for t, _ in good]
     rows = []
     for index, rule in enumerate(ruleset.rules):
-        inside_hit, outside_hit, inside_miss = [], [], []
-        for t, outcome in good:
-            inside = rule.cls in lineage[t]
-            hit = ruleset.holds_quickly(index, outcome)
-            if hit and inside:
-                inside_hit.append(t)
-            elif hit:
-                outside_hit.append(t)
-            elif inside:
-                inside_miss.append(t)
-        rows.append(Agreement(rule, len(inside_hit) + len(inside_miss), len(inside_hit),
-                              len(outside_hit), len(inside_miss), tuple(outside_hit[:examples]),
-                              tuple(inside_miss[:examples])))
+        inside, hit = inside_class[:, column[rule.cls]], holds[:, index]
+        outside_hit = np.flatnonzero(hit & ~inside)
+        inside_miss = np.flatnonzero(inside & ~hit)
+        matched_inside = int((hit & inside).sum())
+        rows.append(Agreement(rule, matched_inside + len(inside_miss), matched_inside, len(outside_hit),
+                              len(inside_miss), tuple(good_ids[i] for i in outside_hit[:examples]),
+                              tuple(good_ids[i] for i in inside_miss[:examples])))
     return AgreementReport(ontology.revision, len(good), unchecked, tuple(rows), tuple(warnings))
 
 
@@ -734,17 +782,18 @@ def _score(drafts: Sequence[tuple[str, str, Rule]], ids: Sequence[str], lineage:
     ruleset = RuleSet(rule for _, _, rule in drafts)
     # First the any_of patterns everywhere, then the none_of patterns where those matched.
     any_patterns = sorted({ruleset.pattern_of[t] for r in ruleset.rules for t in r.any_of})
-    outcomes = match_many(ruleset.patterns, list(structures), [any_patterns] * len(structures), limits)
+    outcomes = match_many(ruleset.patterns, list(structures), [any_patterns] * len(structures), limits,
+                          evidence=False, elements=False)
     need: list[set[int]] = []
     for outcome in outcomes:
         extra: set[int] = set()
         for rule in ruleset.rules:
-            if rule.none_of and any(ruleset.pattern_of[t] in outcome.matches for t in rule.any_of):
+            if rule.none_of and any(ruleset.pattern_of[t] in outcome.hits for t in rule.any_of):
                 extra.update(ruleset.pattern_of[t] for t in rule.none_of)
         need.append(extra)
     if any(need):
-        more = match_many(ruleset.patterns, list(structures), need, limits)
-        outcomes = [o._replace(matches={**o.matches, **m.matches}) for o, m in zip(outcomes, more)]
+        more = match_many(ruleset.patterns, list(structures), need, limits, evidence=False, elements=False)
+        outcomes = [o._replace(hits=o.hits | m.hits) for o, m in zip(outcomes, more)]
     out = []
     for index, (cls, source, rule) in enumerate(drafts):
         inside = outside = members = 0
