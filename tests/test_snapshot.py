@@ -192,11 +192,12 @@ def test_malformed_obo_incremental_parse_names_the_line() -> None:
             + f"\n[Term]\nid: QQX:0000007\nname: aldehyde\n{BAD_LINE}\n")
     expected = line_of(head, BAD_LINE)
     assert _fastobo_line(head) == expected
-    before = dict(parse.PARSE_CALLS)
-    with pytest.raises(ParentageError) as caught:
-        parse_ontology_text(head, "qqx.obo", base=base)
-    assert parse.PARSE_CALLS["incremental"] == before["incremental"] + 1
-    assert str(caught.value).startswith(f"qqx.obo:{expected}: ")
+    for by_digest, build in ((False, "compared"), (True, "incremental")):
+        before = dict(parse.PARSE_CALLS)
+        with pytest.raises(ParentageError) as caught:
+            parse_ontology_text(head, "qqx.obo", base=base, by_digest=by_digest)
+        assert parse.PARSE_CALLS[build] == before[build] + 1
+        assert str(caught.value).startswith(f"qqx.obo:{expected}: ")
 
 
 def test_malformed_header_names_the_line() -> None:
@@ -335,13 +336,14 @@ def test_incremental_build_equals_full_parse(change: Callable[[str], str]) -> No
     new = change(DOC)
     assert new != DOC
     base = full(DOC)
-    before = dict(parse.PARSE_CALLS)
-    incremental = parse_ontology_text(new, "qqx.obo", base=base)
-    assert parse.PARSE_CALLS["incremental"] == before["incremental"] + 1
-    assert parse.PARSE_CALLS["full"] == before["full"]
     whole = full(new)
-    assert list(incremental.terms.values()) == list(whole.terms.values())
-    assert incremental.header == whole.header
+    for by_digest, build in ((False, "compared"), (True, "incremental")):
+        before = dict(parse.PARSE_CALLS)
+        incremental = parse_ontology_text(new, "qqx.obo", base=base, by_digest=by_digest)
+        assert parse.PARSE_CALLS[build] == before[build] + 1
+        assert parse.PARSE_CALLS["full"] == before["full"]
+        assert list(incremental.terms.values()) == list(whole.terms.values())
+        assert incremental.header == whole.header
 
 
 HEADER_EDITS = [

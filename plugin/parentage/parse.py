@@ -1,6 +1,8 @@
 """Build a `Snapshot` from file bytes: OBO (fastobo) or OBO Graphs JSON; full or incremental."""
 from __future__ import annotations
 
+import hashlib
+from collections.abc import Sequence
 from typing import Any
 
 from parentage import _obo
@@ -10,9 +12,9 @@ from parentage.snapshot import Layout, Segment, Snapshot, Term, TermTable, deriv
 # Counts full and incremental parser runs; tests use it to show the store spares a parse.
 PARSE_CALLS = {"full": 0, "incremental": 0, "compared": 0}
 
-# Stanzas compared at once when the head is matched against the base text; doubled after each
-# match, so a long unchanged run costs a few string comparisons, not one per stanza.
-_FIRST_BLOCK = 64
+# Stanzas per stored block digest: an unchanged run of this many stanzas costs one hash of
+# its text; a changed one costs splitting up to this many stanzas.
+BLOCK = 32
 
 
 def decode(data: bytes, path: str) -> str:
@@ -23,28 +25,27 @@ def decode(data: bytes, path: str) -> str:
                              "UTF-8") from None
 
 
-def _layout(stanzas: list[_obo.Stanza]) -> Layout:
-    return Layout([s.offset for s in stanzas], [s.line for s in stanzas],
-                  [s.kind == "Term" for s in stanzas])
-
-
 def parse_ontology_text(text: str, path: str, blob: str | None = None,
-                        base: Snapshot | None = None, base_text: str | None = None) -> Snapshot:
-    """Parse `text`. With `base`, reuse every term whose stanza text is unchanged; with the
-    base's own text as well, unchanged runs of stanzas are found without splitting them."""
+                        base: Snapshot | None = None, by_digest: bool = False) -> Snapshot:
+    """Parse `text`. With `base`, reuse every term whose stanza text is unchanged: found by
+    comparing runs of stanzas with the base's block digests, or (`by_digest`, or a base that
+    cannot be compared) by the digest of every head stanza."""
     if path.endswith(".json"):
         from parentage._obojson import parse_json
 
         PARSE_CALLS["full"] += 1
         return Snapshot(path, blob, parse_json(text, path))
-    if base is not None and base_text is not None and base.reusable:
+    text = _obo.normalise(text)
+    if base is not None and not by_digest and base.reusable:
         PARSE_CALLS["compared"] += 1
-        return _compared(_obo.normalise(text), path, blob, base, _obo.normalise(base_text))
+        return _compared(text, path, blob, base)
     header, stanzas = _obo.split(text, path)
+    header_text = text[: stanzas[0].offset] if stanzas else text
     if base is None:
         PARSE_CALLS["full"] += 1
         terms = _obo.parse_stanzas(stanzas, path)
-        return Snapshot(path, blob, terms, _obo.header_pairs(header, path), _layout(stanzas))
+        return Snapshot(path, blob, terms, _obo.header_pairs(header, path),
+                        _layout(text, header_text, stanzas))
     PARSE_CALLS["incremental"] += 1
     old = base.terms
     known = {old.digests[n]: n for n in old.index.values()}
@@ -78,21 +79,42 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
         digests.append(stanza.digest)
     table = TermTable(ids, parents, obsolete, lines, digests, rows)
     # Headers are short: parsing them again is cheaper than proving them unchanged.
-    return Snapshot(path, blob, table, _obo.header_pairs(header, path), _layout(stanzas))
+    return Snapshot(path, blob, table, _obo.header_pairs(header, path),
+                    _layout(text, header_text, stanzas))
 
 
-def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) -> Snapshot:
-    """The head as runs of base stanzas whose text it repeats, plus the stanzas that differ.
+def _digest(text: str) -> str:
+    return hashlib.blake2b(text.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
 
-    Both texts are normalised. A run is accepted only when the head has the same characters
-    and a stanza starts (or the text ends) right after it, so a copied run is exactly what a
-    full split would have found there; everything else is split and, where its digest is new,
-    parsed. Equal to a full parse by construction (and by the property test).
+
+def _blocks(text: str, starts: Sequence[int]) -> list[str]:
+    """Digest of each run of BLOCK stanzas (from a stanza's start to the next run's start, or
+    the end of the text): what a later revision compares its text with."""
+    cut = [starts[k] for k in range(0, len(starts), BLOCK)] + [len(text)]
+    return [_digest(text[cut[j]:cut[j + 1]]) for j in range(len(cut) - 1)]
+
+
+def _layout(text: str, header: str, stanzas: list[_obo.Stanza]) -> Layout:
+    starts = [s.offset for s in stanzas]
+    return Layout(starts, [s.line for s in stanzas], [s.kind == "Term" for s in stanzas],
+                  _blocks(text, starts), len(text), _digest(header))
+
+
+def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapshot:
+    """The head as runs of base stanzas it repeats, plus the stanzas that differ.
+
+    `text` is normalised. At each run of BLOCK base stanzas the head's text at the same
+    length is hashed and compared with the run's stored digest; a run is copied only when
+    the digests agree and a stanza starts (or the text ends) right after it, so it is what a
+    full split would have found there. Elsewhere the head is split stanza by stanza: a stanza
+    with a base stanza's digest is copied, any other is parsed. Equal to a full parse by
+    construction (and by the property test); the base's own text is never read.
     """
     layout = base.layout
     assert layout is not None
-    starts, count = layout.starts, len(layout.starts)
-    old_first = starts[0] if starts else len(old)
+    starts, count, blocks = layout.starts, len(layout.starts), layout.blocks
+    first_term = layout.first_terms()
+    digests = base.terms.digests
     head_starts = _obo.stanza_starts_from(text, 0, 1)
     first = head_starts[0] if head_starts else len(text)
     header_text = text[:first]
@@ -100,32 +122,28 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) 
     segments: list[Segment] = []
     fresh: list[tuple[int, _obo.Stanza]] = []
     at, k, line = first, 0, header_text.count("\n") + 1
-    block = _FIRST_BLOCK
     size = len(text)
     while at < size:
-        if k < count:
-            block = min(block, count - k)
-            while block:
-                after = k + block
-                length = (starts[after] if after < count else len(old)) - starts[k]
-                stop = at + length
-                if text[at:stop] == old[starts[k]:starts[k] + length] and \
-                        (stop == size or _obo.is_stanza_line(text, stop)):
-                    break
-                block //= 2
-            if block:
-                segments.append(("copy", k, block, at - starts[k], line - layout.lines[k]))
-                line += old.count("\n", starts[k], starts[k] + length)
-                at, k = stop, k + block
-                block *= 2
+        if k < count and k % BLOCK == 0:
+            after = min(k + BLOCK, count)
+            stop = at + (starts[after] if after < count else layout.size) - starts[k]
+            if stop <= size and (stop == size or _obo.is_stanza_line(text, stop)) and \
+                    _digest(text[at:stop]) == blocks[k // BLOCK]:
+                segments.append(("copy", k, after - k, at - starts[k], line - layout.lines[k]))
+                line += text.count("\n", at, stop)
+                at, k = stop, after
                 continue
-        # This head stanza differs from the base's next one: split it on its own.
+        # Split the next head stanza on its own.
         nxt = _obo.stanza_starts_from(text, at + 1, 1)
         stop = nxt[0] if nxt else size
         stanza = _obo.stanza_at(text, at, stop, line, path)
-        same = known.get(stanza.digest) if stanza.kind == "Term" else None
+        same = None
+        if stanza.kind == "Term":
+            if k < count and layout.terms[k] and digests[first_term[k]] == stanza.digest:
+                same = k  # the base's next stanza, unchanged
+            else:
+                same = known.get(stanza.digest)  # one met again (moved, or after an edit)
         if same is not None:
-            # A base stanza met again (moved or after an edit): copy it, resume after it.
             segments.append(("copy", same, 1, at - starts[same], line - layout.lines[same]))
             k = same + 1
         else:
@@ -133,16 +151,19 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot, old: str) 
             segments.append(("new", at, line, None))
         line += text.count("\n", at, stop)
         at = stop
-        block = 1
     parsed = _obo.parse_stanzas([s for _, s in fresh], path)
     # After the stanzas, as a full parse does, so the same error is reported first.
-    header = base.header if header_text == old[:old_first] else \
+    header = base.header if _digest(header_text) == layout.header else \
         _obo.header_pairs(header_text.removesuffix("\n"), path)
     terms = iter(parsed)
     for place, stanza in fresh:
         term = next(terms) if stanza.kind == "Term" else None
         segments[place] = ("new", stanza.offset, stanza.line, term)
-    return derived(path, blob, header, base, segments)
+    snap = derived(path, blob, header, base, segments)
+    assert snap.layout is not None
+    snap.layout = snap.layout._replace(blocks=_blocks(text, snap.layout.starts), size=size,
+                                       header=_digest(header_text))
+    return snap
 
 
 def _digest_to_stanza(base: Snapshot) -> dict[str, int]:

@@ -315,6 +315,20 @@ class Layout(NamedTuple):
     starts: Sequence[int]
     lines: Sequence[int]
     terms: list[bool]
+    blocks: Sequence[str] = ()  # digest of each run of parse.BLOCK stanzas' text
+    size: int = 0  # length of the normalised text
+    header: str = ""  # digest of the text before the first stanza
+
+    def first_terms(self) -> list[int]:
+        """The term-table position of each stanza (of the next Term, for other stanzas), and
+        the number of terms at the end."""
+        out = [0] * (len(self.terms) + 1)
+        count = 0
+        for k, is_term in enumerate(self.terms):
+            out[k] = count
+            count += is_term
+        out[-1] = count
+        return out
 
 
 # A head built from a base: runs of base stanzas copied unchanged, and new stanzas.
@@ -442,8 +456,11 @@ class Snapshot:
         than 50,000 short ones). Ids and parent ids hold no whitespace in OBO, and rows are
         ASCII JSON, so newline, tab and the record separator cannot occur inside them."""
         if self.base is not None and self.depth <= MAX_DERIVED_DEPTH:
+            layout = self.layout
+            assert layout is not None
             return {"path": self.path, "blob": self.blob, "header": list(self.header),
                     "base": [self.base.blob, self.base.path],
+                    "blocks": [list(layout.blocks), layout.size, layout.header],
                     "segments": [list(seg[:3]) + [_term_to_list(seg[3]) if seg[3] else None]
                                  if seg[0] == "new" else list(seg) for seg in self.segments]}
         table = self.terms
@@ -458,7 +475,8 @@ class Snapshot:
                 "digests": "\n".join(table.digests[n] for n in pos),
                 "rows": "\x1e".join(table.row_of(t) for t in ids),
                 "layout": None if layout is None else
-                [layout.starts, layout.lines, "".join("1" if t else "0" for t in layout.terms)]}
+                [list(layout.starts), list(layout.lines), "".join("1" if t else "0" for t in layout.terms),
+                 list(layout.blocks), layout.size, layout.header]}
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any], base: Snapshot | None = None,
@@ -470,8 +488,12 @@ class Snapshot:
                 raise ValueError("a derived snapshot needs its base")
             segments = [tuple(seg[:3]) + (_term_from_list(seg[3]) if seg[3] else None,)
                         if seg[0] == "new" else tuple(seg) for seg in data["segments"]]
-            return derived(data["path"], data["blob"], tuple(tuple(h) for h in data["header"]),
+            snap = derived(data["path"], data["blob"], tuple(tuple(h) for h in data["header"]),
                            base, segments)
+            blocks, size, header = data["blocks"]
+            assert snap.layout is not None
+            snap.layout = snap.layout._replace(blocks=blocks, size=size, header=header)
+            return snap
         ids = data["ids"].split("\n") if data["ids"] else []
         parents = ParentColumn(data["parents"].split("\n") if ids else [])
         flat = data["lines"]
@@ -483,7 +505,8 @@ class Snapshot:
         table = TermTable(ids, parents, [c == "1" for c in data["obsolete"]], lines,
                           data["digests"].split("\n") if ids else [], kept)
         stored = data.get("layout")
-        layout = None if stored is None else Layout(stored[0], stored[1], [c == "1" for c in stored[2]])
+        layout = None if stored is None else Layout(stored[0], stored[1], [c == "1" for c in stored[2]],
+                                                    stored[3], stored[4], stored[5])
         return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
 
     def to_bytes(self) -> tuple[bytes, list[str] | None]:
@@ -545,12 +568,7 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
     """
     assert base.layout is not None
     old, layout = base.terms, base.layout
-    first_term = [0] * (len(layout.terms) + 1)  # base term position of each base stanza
-    count = 0
-    for k, is_term in enumerate(layout.terms):
-        first_term[k] = count
-        count += is_term
-    first_term[-1] = count
+    first_term = layout.first_terms()
     ids: list[str] = []
     parents: list[str] = []  # tab-joined, as ParentColumn keeps them
     obsolete: list[bool] = []

@@ -54,11 +54,7 @@ class Workspace:
         if snap is None:
             data = version.data if version.data is not None else self.repo.blob_bytes(version.blob)
             text = decode(data, path)
-            base_text = None
-            if base is not None and base.blob is not None and base.reusable:
-                # Comparing with the base's text finds the unchanged runs without splitting them.
-                base_text = decode(self.repo.blob_bytes(base.blob), base.path)
-            snap = parse_ontology_text(text, path, version.blob, base, base_text)
+            snap = parse_ontology_text(text, path, version.blob, base)
             self._put(f"{version.blob}:{path}", snap)
             self._snapshots[(version.blob, path)] = snap
         return snap
