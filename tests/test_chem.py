@@ -10,6 +10,7 @@ from rdkit import Chem
 from rdkit.Chem import rdMolDescriptors
 
 from parentage.chem.molecules import (
+    ELEMENT_SYMBOLS,
     MolFacts,
     analyse_inchi,
     analyse_many,
@@ -305,3 +306,11 @@ def test_written_formula_reads_as_rdkits(written: str, smiles: str) -> None:
 @pytest.mark.parametrize("written", ["", "abc", "C2H6O)", "(C2H6O", "Xx2", "C2 H6 O!"])
 def test_unreadable_formula(written: str) -> None:
     assert parse_formula(written) is None
+
+
+def test_element_symbols_are_rdkit_periodic_table() -> None:
+    # Reference: RDKit's periodic table (atomic numbers 1-118), as a reference library.
+    from rdkit import Chem
+
+    table = Chem.GetPeriodicTable()
+    assert ELEMENT_SYMBOLS == [table.GetElementSymbol(n) for n in range(1, 119)]

@@ -118,7 +118,7 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
     head_starts = _obo.stanza_starts_from(text, 0, 1)
     first = head_starts[0] if head_starts else len(text)
     header_text = text[:first]
-    known = _digest_to_stanza(base)
+    stanza_of_term: list[int] = []  # filled when a stanza is found out of place
     segments: list[Segment] = []
     fresh: list[tuple[int, _obo.Stanza]] = []
     at, k, line = first, 0, header_text.count("\n") + 1
@@ -142,7 +142,13 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
             if k < count and layout.terms[k] and digests[first_term[k]] == stanza.digest:
                 same = k  # the base's next stanza, unchanged
             else:
-                same = known.get(stanza.digest)  # one met again (moved, or after an edit)
+                # A base stanza met out of place (moved, or after a removal) has its id and
+                # its digest; a different id means different text, so it is new.
+                n = base.terms.index.get(stanza.id) if stanza.id else None
+                if n is not None and digests[n] == stanza.digest:
+                    if not stanza_of_term:
+                        stanza_of_term = [j for j, is_term in enumerate(layout.terms) if is_term]
+                    same = stanza_of_term[n]
         if same is not None:
             segments.append(("copy", same, 1, at - starts[same], line - layout.lines[same]))
             k = same + 1
@@ -164,17 +170,3 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
     snap.layout = snap.layout._replace(blocks=_blocks(text, snap.layout.starts), size=size,
                                        header=_digest(header_text))
     return snap
-
-
-def _digest_to_stanza(base: Snapshot) -> dict[str, int]:
-    """Digest of each base Term stanza -> its stanza index (the first, if texts repeat)."""
-    layout = base.layout
-    assert layout is not None
-    out: dict[str, int] = {}
-    digests = base.terms.digests
-    position = 0
-    for k, is_term in enumerate(layout.terms):
-        if is_term:
-            out.setdefault(digests[position], k)
-            position += 1
-    return out

@@ -9,6 +9,7 @@ import json
 from bisect import bisect_right
 from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from functools import cached_property
+from itertools import accumulate
 from typing import Any, NamedTuple, overload
 
 STRUCTURE_FIELDS = ("smiles", "inchi", "inchikey", "formula", "mass", "monoisotopic_mass", "charge")
@@ -322,13 +323,7 @@ class Layout(NamedTuple):
     def first_terms(self) -> list[int]:
         """The term-table position of each stanza (of the next Term, for other stanzas), and
         the number of terms at the end."""
-        out = [0] * (len(self.terms) + 1)
-        count = 0
-        for k, is_term in enumerate(self.terms):
-            out[k] = count
-            count += is_term
-        out[-1] = count
-        return out
+        return list(accumulate(self.terms, initial=0))
 
 
 # A head built from a base: runs of base stanzas copied unchanged, and new stanzas.
@@ -502,10 +497,10 @@ class Snapshot:
             kept: list[Any] = [(rows, n) for n in range(len(ids))]
         else:
             kept = data["rows"].split("\x1e") if ids else []
-        table = TermTable(ids, parents, [c == "1" for c in data["obsolete"]], lines,
+        table = TermTable(ids, parents, list(map("1".__eq__, data["obsolete"])), lines,
                           data["digests"].split("\n") if ids else [], kept)
         stored = data.get("layout")
-        layout = None if stored is None else Layout(stored[0], stored[1], [c == "1" for c in stored[2]],
+        layout = None if stored is None else Layout(stored[0], stored[1], list(map("1".__eq__, stored[2])),
                                                     stored[3], stored[4], stored[5])
         return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
 

@@ -20,7 +20,6 @@ Conventions of the computed values:
 from __future__ import annotations
 
 import contextlib
-import functools
 import io
 import re
 import threading
@@ -294,11 +293,16 @@ def analyse_many(structures: Iterable[str], limits: Limits = DEFAULT_LIMITS, sto
 
 # -- formulas as written ----------------------------------------------------------------------
 
-@functools.cache
-def _elements() -> frozenset[str]:
-    from rdkit import Chem
+# The 118 element symbols of the IUPAC periodic table (2016 names through oganesson), in
+# atomic-number order; tests/test_chem.py checks them against RDKit's periodic table. Kept
+# here so reading a written formula never loads RDKit.
+ELEMENT_SYMBOLS = (  # noqa: SIM905 (a list literal of 118 strings reads worse)
+    "H He Li Be B C N O F Ne Na Mg Al Si P S Cl Ar K Ca Sc Ti V Cr Mn Fe Co Ni Cu Zn Ga Ge As "
+    "Se Br Kr Rb Sr Y Zr Nb Mo Tc Ru Rh Pd Ag Cd In Sn Sb Te I Xe Cs Ba La Ce Pr Nd Pm Sm Eu Gd "
+    "Tb Dy Ho Er Tm Yb Lu Hf Ta W Re Os Ir Pt Au Hg Tl Pb Bi Po At Rn Fr Ra Ac Th Pa U Np Pu Am "
+    "Cm Bk Cf Es Fm Md No Lr Rf Db Sg Bh Hs Mt Ds Rg Cn Nh Fl Mc Lv Ts Og").split()
+_ELEMENTS = frozenset(ELEMENT_SYMBOLS)
 
-    return frozenset(Chem.GetPeriodicTable().GetElementSymbol(n) for n in range(1, 119))
 _ALIASES = {"D": "H", "T": "H", "R": "*"}  # isotopes count as their element; R: any group
 _TOKEN = re.compile(r"([A-Z][a-z]?|\*)(\d*)|(\()|(\))(\d*)")
 # (pattern, whether the sign comes first); tried in order, the ambiguous form last.
@@ -331,7 +335,7 @@ def _parse_part(text: str) -> dict[str, int] | None:
         symbol, count, opening, _closing, multiplier = match.groups()
         if symbol:
             symbol = _ALIASES.get(symbol, symbol)
-            if symbol not in _elements() and symbol != "*":
+            if symbol not in _ELEMENTS and symbol != "*":
                 return None
             stack[-1][symbol] = stack[-1].get(symbol, 0) + (int(count) if count else 1)
         elif opening:
