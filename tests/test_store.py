@@ -234,3 +234,39 @@ def test_second_diff_does_not_parse_again(two_commits: GitRepo, selector: list[s
     assert main(args) == 0
     assert _parse_count() == 0
     assert capsys.readouterr().out == first
+
+
+# -- the InChIKey index, stored one key per row ------------------------------------------------
+
+# Ethanol and its InChIKey (from memory; the structure tests check it against RDKit).
+ETHANOL_KEY = "LFQSCWFLJHTTHZ-UHFFFAOYSA-N"
+DUPLICATES = OBO + "".join(
+    f"\n[Term]\nid: QQX:000001{n}\nname: ethanol {n}\nis_a: QQX:0000001\n"
+    f'property_value: smiles "{smiles}" xsd:string\n' for n, smiles in ((1, "CCO"), (2, "OCC")))
+
+
+def test_stored_inchikey_index_gives_the_same_duplicates(two_commits: GitRepo, tmp_path: Path,
+                                                         monkeypatch: pytest.MonkeyPatch,
+                                                         capsys: pytest.CaptureFixture[str]) -> None:
+    """A second run looks keys up in the stored index instead of building it: same findings."""
+    monkeypatch.setenv("PARENTAGE_CACHE", str(tmp_path / "cache"))
+    two_commits.write("qqx.obo", DUPLICATES)
+    two_commits.commit()
+    # The change adds a third ethanol: a duplicate of both committed ones (found in the index).
+    two_commits.write("qqx.obo", DUPLICATES + "\n[Term]\nid: QQX:0000013\nname: ethanol 3\n"
+                      'is_a: QQX:0000001\nproperty_value: smiles "C(C)O" xsd:string\n')
+    two_commits.git("add", "qqx.obo")
+    args = ["check", "-C", str(two_commits.path), "--format", "json"]
+    runs = []
+    for _ in range(2):
+        assert main(args) == 1
+        runs.append(json.loads(capsys.readouterr().out))
+    assert runs[0] == runs[1]
+    dup = [f for f in runs[0]["findings"] if f["kind"] == "duplicate-structure"]
+    assert [(f["term"], f["evidence"]["others"]) for f in dup] == [
+        ("QQX:0000013", ["QQX:0000011", "QQX:0000012"])]
+    store = Store(str(tmp_path / "cache" / "store.sqlite"))
+    built = store.keys("inchikey-index-built")
+    assert len(built) == 1
+    assert store.get(built[0], ETHANOL_KEY) == ["QQX:0000011", "QQX:0000012"]
+    store.close()

@@ -286,9 +286,7 @@ class TermTable(Mapping[str, Term]):
         text (the caller confirms on the decoded term).
         """
         written = {json.dumps(i)[1:-1] for i in ids}  # as the ASCII JSON rows spell them
-        # (StoredRows, position) rows: read each source whole at once, not one query per term.
-        for source in {row[0] for row in self.rows if type(row) is tuple}:  # a Term is a tuple too
-            source.every()
+        self.prefetch()
         for tid, n in self.index.items():
             row = self.rows[n]
             if type(row) is tuple:
@@ -300,6 +298,11 @@ class TermTable(Mapping[str, Term]):
                     yield tid
             elif any(i in row for i in written):
                 yield tid
+
+    def prefetch(self) -> None:
+        """Read every row still in the store at once (before visiting every term)."""
+        for source in {row[0] for row in self.rows if type(row) is tuple}:  # a Term is a tuple too
+            source.every()
 
     def row_of(self, tid: str) -> str:
         """The stored JSON row of a term (its non-column fields)."""
@@ -435,6 +438,7 @@ class Snapshot:
 
     def dangling(self) -> Iterator[tuple[Term, str, str]]:
         """(term, clause, target) for every reference to an id this snapshot does not define."""
+        self.terms.prefetch()
         for term in self.terms.values():
             for clause, target in term.references():
                 if target not in self.terms:
@@ -442,6 +446,7 @@ class Snapshot:
 
     def live(self) -> Iterator[Term]:
         table = self.terms
+        table.prefetch()
         return (table[t] for t, n in table.index.items() if not table.obsolete[n])
 
     # -- serialisation for the store (JSON, never pickle) -------------------------------
