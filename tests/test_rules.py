@@ -240,3 +240,23 @@ def test_rule_agreement_counts_and_examples() -> None:
     assert row.examples_missed == ("CHEM:1000003",)
     assert row.precision == pytest.approx(2 / 3)
     assert row.recall == pytest.approx(2 / 3)
+
+
+TEXTBOOK = [ACETIC_ACID, ACETATE, BENZOIC_ACID, ETHANOL, CHLOROACETIC_ACID, CHLOROFORM, CHLOROETHANOL,
+            "CCCC", "[Na+].[Cl-]"]
+
+
+def test_rule_table_agrees_with_each_rule_on_its_own() -> None:
+    # Every rule of the semantics table over every textbook structure: the (structures x
+    # rules) table that `rules test` and the verdicts use must say what `holds` says rule by
+    # rule, with atoms found or not.
+    text = "".join(case.values[0] for case in SEMANTICS)
+    onto = ontology([(f"CHEM:10000{i:02d}", s, [ROOT]) for i, s in enumerate(TEXTBOOK)])
+    ruleset, _ = load_rules([("rules/chem.yaml", text)], onto)
+    everything = range(len(ruleset))
+    for evidence in (True, False):
+        outcomes = ruleset.outcomes(TEXTBOOK, [everything] * len(TEXTBOOK), Config().limits, evidence)
+        table = ruleset.holds_table(outcomes)
+        expected = [[ruleset.holds(i, o).holds for i in everything] for o in outcomes]
+        assert table.tolist() == expected
+        assert any(map(any, expected)) and not all(map(all, expected))  # both answers occur

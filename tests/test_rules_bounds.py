@@ -12,6 +12,7 @@ import time
 import pytest
 from rdkit import Chem
 
+from parentage.chem.molecules import parse_smiles
 from parentage.chem.smarts import compile_smarts, match_many
 from parentage.config import Limits
 from parentage.snapshot import Ontology, Snapshot, Term
@@ -90,3 +91,36 @@ def test_match_count_is_bounded() -> None:
     assert len(capped.matches[0]) == 1
     [default] = match_many(patterns, ["c1ccc2ccccc2c1"], [[0]], Limits())
     assert len(default.matches[0]) == 2  # naphthalene: two rings, matches unique by atom set
+
+
+@pytest.mark.parametrize("smiles", [
+    pytest.param("C(", id="syntax-error"),
+    pytest.param("c1cccc1", id="cannot-kekulise"),
+    pytest.param("   ", id="blank"),
+    pytest.param("C" * 30, id="over-the-atom-limit"),
+    pytest.param("C" * 10 + "." + "O" * 3, id="near-the-limit-read-quickly"),
+])
+def test_worker_reads_as_the_careful_parse(smiles: str) -> None:
+    # The worker reads a short text with one RDKit call; whatever it makes of a structure
+    # (a molecule, or why not) must be what the careful parse makes of it.
+    limits = Limits(max_atoms=20)
+    [outcome] = match_many([compile_smarts("[#6]")], [smiles], [[0]], limits)
+    mol, error, _log = parse_smiles(smiles, limits)
+    assert outcome.error == error
+    assert (0 in outcome.hits) == (mol is not None)
+
+
+def test_many_structures_stay_bounded() -> None:
+    # Hundreds of plain structures around the hostile one, over two worker processes: only
+    # the hostile one runs into the bound; every other one gets its answer.
+    big = ladder_smiles()
+    items = ["CCO", "c1ccccc1"] * 200
+    items.insert(150, big)
+    patterns = [compile_smarts(ODD_RING), compile_smarts("[OX2H]")]
+    start = time.perf_counter()
+    outcomes = match_many(patterns, items, [[0, 1]] * len(items), LIMITS, workers=2, evidence=False)
+    assert time.perf_counter() - start < BOUND + 6.0
+    assert outcomes[150].error is not None and outcomes[150].error.startswith("time limit")
+    rest = outcomes[:150] + outcomes[151:]
+    assert all(o.error is None for o in rest)
+    assert [1 in o.hits for o in rest] == [s == "CCO" for s in items[:150] + items[151:]]

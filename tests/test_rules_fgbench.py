@@ -14,8 +14,9 @@ from fgbench import ROOT, ancestors_of, groups, molecules, most_specific
 from rdkit import Chem, RDConfig
 
 from parentage.chem.smarts import ScreenTable, compile_smarts, facts_of, find
+from parentage.config import Config
 from parentage.snapshot import Ontology, Snapshot, Term
-from parentage.tiers.rules import load_rules
+from parentage.tiers.rules import load_rules, rule_agreement
 
 SUBSET = 2000
 
@@ -137,3 +138,22 @@ def test_screen_facts_bound_the_true_counts(subset: list) -> None:
                 assert facts.bond_counts[kind] >= true, (mol.smiles, kind)
             assert facts.charge == Chem.GetFormalCharge(rd)
             assert facts.elements == (elements if quick is None else frozenset())
+
+
+def test_rules_test_counts_equal_rdkit_matching(subset: list, rdkit_matches: dict[str, set[str]]) -> None:
+    # `rules test` searches for one match per pattern (no atoms): each defining rule's matches
+    # inside plus outside must be the molecules RDKit's HasSubstructMatch finds, and its members
+    # the molecules filed under the group or below it.
+    onto = bench_ontology(subset, rdkit_matches, {})
+    text = "".join(f"- class: {g.id}\n  kind: defining\n  any_of: ['{g.smarts}']\n" for g in groups())
+    ruleset, _ = load_rules([("rules/fgb.yaml", text)], onto)
+    report = rule_agreement(ruleset, onto, Config())
+    assert report.structured == len(subset) and not report.unchecked
+    for row in report.rules:
+        matched = {m.id for m in subset if row.rule.cls in rdkit_matches[m.id]}
+        members = {m.id for m in subset if row.rule.cls in onto.ancestors(m.id)}
+        assert row.matched_inside + row.matched_outside == len(matched), row.rule.cls
+        assert row.matched_inside == len(matched & members), row.rule.cls
+        assert row.members == len(members), row.rule.cls
+        assert set(row.examples_outside) <= matched - members
+    assert sum(r.matched_inside for r in report.rules) > 1000

@@ -406,7 +406,7 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
     atoms = mol.GetNumAtoms()
     text = (smiles.split()[0] if smiles.strip() else "") if smiles else None
     if elements_of is not None and text is not None and not ("#" in text and _NUMBERED_ATOM.search(text)):
-        counts: dict[int, int] | None = _text_atoms(text, elements_of)
+        counts: dict[int, int] = _text_atoms(text, elements_of)
         exact = False
     else:
         formula, exact = _formula_counts(mol), True

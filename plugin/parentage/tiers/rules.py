@@ -92,7 +92,7 @@ class Holds(NamedTuple):
 
     holds: bool
     smarts: tuple[str, ...] = ()  # the patterns that matched (holds) or that decided (fails)
-    atoms: tuple[tuple[int, ...], ...] = ()
+    atoms: tuple[Sequence[int], ...] = ()
     reason: str = ""  # why it fails
 
 
@@ -242,20 +242,11 @@ class RuleSet:
         texts = list(dict.fromkeys(t for r in self.rules for t in r.smarts))
         self.patterns: list[Pattern] = [compile_smarts(t) for t in texts]
         self.pattern_of = {t: i for i, t in enumerate(texts)}
+        self.texts = texts
         self._rule_patterns = [frozenset(self.pattern_of[t] for t in r.smarts) for r in self.rules]
         self._parts = [tuple(tuple(self.pattern_of[t] for t in getattr(r, k)) for k in SMARTS_KEYS)
                        for r in self.rules]
         self.triggers = tuple(i for i, r in enumerate(self.rules) if r.kind in _SUFFICIENT)
-        # A trigger can only hold where one of its any_of / all_of patterns matched (or where
-        # it has none): the index spares checking every trigger on every structure.
-        self._trigger_by_pattern: dict[int, list[int]] = {}
-        self._unindexed: list[int] = []
-        for r in self.triggers:
-            positive = self._parts[r][0] + self._parts[r][1]
-            if not positive:
-                self._unindexed.append(r)
-            for pattern in set(positive):
-                self._trigger_by_pattern.setdefault(pattern, []).append(r)
         self._cache: dict[tuple[Limits, str], Outcome] = {}
         self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
         self._elements = any(r.has_elements or r.lacks_elements for r in self.rules)
@@ -365,30 +356,25 @@ class RuleSet:
     def holds(self, index: int, outcome: Outcome) -> Holds:
         """Whether rule `index` holds, given the structure's matches."""
         rule = self.rules[index]
-
-        def found(text: str) -> bool:
-            return self.pattern_of[text] in outcome.hits
-
-        def where(text: str) -> tuple[tuple[int, ...], ...]:
-            return outcome.matches.get(self.pattern_of[text], ())
-
+        any_of, all_of, none_of = self._parts[index]
+        hits, matches, texts = outcome.hits, outcome.matches, self.texts
         smarts: list[str] = []
-        atoms: list[tuple[int, ...]] = []
-        if rule.any_of:
-            hits = [t for t in rule.any_of if found(t)]
-            if not hits:
+        atoms: list[Sequence[int]] = []
+        if any_of:
+            found = [p for p in any_of if p in hits]
+            if not found:
                 return Holds(False, rule.any_of, (), "no any_of pattern matches")
-            smarts += hits
-            for t in hits:
-                atoms += where(t)
-        for text in rule.all_of:
-            if not found(text):
-                return Holds(False, (text,), (), "an all_of pattern does not match")
-            smarts.append(text)
-            atoms += where(text)
-        for text in rule.none_of:
-            if found(text):
-                return Holds(False, (text,), where(text), "a none_of pattern matches")
+            for p in found:
+                smarts.append(texts[p])
+                atoms += matches.get(p, ())
+        for p in all_of:
+            if p not in hits:
+                return Holds(False, (texts[p],), (), "an all_of pattern does not match")
+            smarts.append(texts[p])
+            atoms += matches.get(p, ())
+        for p in none_of:
+            if p in hits:
+                return Holds(False, (texts[p],), tuple(matches.get(p, ())), "a none_of pattern matches")
         if rule.net_charge and outcome.charge not in rule.net_charge:
             return Holds(False, (), (), f"net charge {outcome.charge} is not "
                                         f"{' or '.join(str(c) for c in rule.net_charge)}")
@@ -410,6 +396,8 @@ class RuleSet:
         implies, and `also[term]` with their ancestors (e.g. classes another tier proposes, so
         that a defining rule that fails can say no).
         """
+        import numpy as np
+
         ids = [t for t in term_ids if t in structures]
         lineage = {t: ontology.ancestors(t) for t in ids}
         for t, proposed in (also or {}).items():
@@ -425,34 +413,37 @@ class RuleSet:
         items = [structures[t] for t in ids]
         outcomes = self.outcomes(items, first, limits)
         # Classes a holding sufficient rule implies may bring necessary rules not yet matched.
+        table = self.holds_table(outcomes)
+        triggers = np.zeros(len(self.rules), dtype=bool)
+        triggers[list(self.triggers)] = True
+        implies: dict[int, list[str]] = {}  # rule -> the classes it implies, its own first
         implied: dict[str, dict[str, int]] = {}  # term -> implied class -> the rule implying it
         second: list[set[int]] = []
-        for t, outcome, done in zip(ids, outcomes, first):
+        for row, (t, outcome, done) in enumerate(zip(ids, outcomes, first)):
             found: dict[str, int] = {}
             if outcome.error is None:
-                maybe = set(self._unindexed)
-                for pattern in outcome.hits:
-                    maybe.update(self._trigger_by_pattern.get(pattern, ()))
-                for r in sorted(maybe):
-                    if self.holds_quickly(r, outcome):
+                for r in np.flatnonzero(table[row] & triggers).tolist():
+                    if r not in implies:
                         cls = self.rules[r].cls
+                        implies[r] = [cls, *ontology.ancestors(cls)]
+                    for cls in implies[r]:
                         found.setdefault(cls, r)
-                        for above in ontology.ancestors(cls):
-                            found.setdefault(above, r)
             implied[t] = found
-            extra = {r for c in found for r in self.by_class.get(c, ())} - done
+            extra = {r for c in found for r in self.by_class.get(c, ())} - done if found else set()
             second.append(extra)
         if any(second):
             outcomes = self.outcomes(items, [a | b for a, b in zip(first, second)], limits)
-        return {t: self._judge(t, lineage[t], implied[t], outcome)
-                for t, outcome in zip(ids, outcomes)}
+            table = self.holds_table(outcomes)
+        return {t: self._judge(t, lineage[t], implied[t], outcome, table[row].tolist())
+                for row, (t, outcome) in enumerate(zip(ids, outcomes))}
 
     def _judge(self, term: str, lineage: frozenset[str], implied: Mapping[str, int],
-               outcome: Outcome) -> list[Verdict]:
+               outcome: Outcome, holding: Sequence[bool]) -> list[Verdict]:
+        """The verdicts on one term; `holding[i]`: whether rule i holds (`holds_table`)."""
         if outcome.error is not None:
             return [Verdict(term, "", "rule", "abstains", {"reason": outcome.error})]
         out = []
-        for cls in sorted(lineage | set(implied)):
+        for cls in sorted(lineage.union(implied)):
             indices = self.by_class.get(cls, ())
             if not indices:
                 if cls in implied:
@@ -461,11 +452,9 @@ class RuleSet:
                                        {**self._evidence(r, self.holds(r, outcome)),
                                         "implied_by": self.rules[r].cls}))
                 continue
-            results = [(i, self.holds_quickly(i, outcome)) for i in indices]
-            failed = [i for i, h in results if not h and self.rules[i].kind in _NECESSARY]
-            sufficient = [i for i, h in results if h and self.rules[i].kind in _SUFFICIENT]
-            necessary = [i for i, h in results if h and self.rules[i].kind == "necessary"]
-            decided = failed or sufficient or necessary
+            failed = [i for i in indices if not holding[i] and self.rules[i].kind in _NECESSARY]
+            decided = failed or [i for i in indices if holding[i] and self.rules[i].kind in _SUFFICIENT] \
+                or [i for i in indices if holding[i] and self.rules[i].kind == "necessary"]
             if decided:
                 chosen = decided[0]
                 out.append(Verdict(term, cls, "rule", "opposes" if failed else "supports",
