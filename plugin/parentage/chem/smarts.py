@@ -807,7 +807,8 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
     if ctx is None or not todo:  # pragma: no cover - no fork: in process, maxMatches only
         decode = _Decoder(wanted, evidence)
         _run(todo, items, patterns, wanted, limits, [0.0, 0.0, 0.0],
-             lambda rows: results.update(decode(r) for r in rows), evidence, False, elements)
+             lambda rows: results.update(decode(r) for r in json.loads(json.dumps(rows))), evidence,
+             False, elements)  # through JSON as from a worker: atoms as lists
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
     count = max(1, min(workers or default_workers(len(todo)), len(todo)))

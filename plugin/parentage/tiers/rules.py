@@ -247,6 +247,10 @@ class RuleSet:
         self._parts = [tuple(tuple(self.pattern_of[t] for t in getattr(r, k)) for k in SMARTS_KEYS)
                        for r in self.rules]
         self.triggers = tuple(i for i, r in enumerate(self.rules) if r.kind in _SUFFICIENT)
+        # Per class: its necessary-or-defining, sufficient-or-defining and necessary rules.
+        self._kinds = {cls: tuple(tuple(i for i in indices if self.rules[i].kind in kinds)
+                                  for kinds in (_NECESSARY, _SUFFICIENT, ("necessary",)))
+                       for cls, indices in self.by_class.items()}
         self._cache: dict[tuple[Limits, str], Outcome] = {}
         self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
         self._elements = any(r.has_elements or r.lacks_elements for r in self.rules)
@@ -359,19 +363,19 @@ class RuleSet:
         any_of, all_of, none_of = self._parts[index]
         hits, matches, texts = outcome.hits, outcome.matches, self.texts
         smarts: list[str] = []
-        atoms: list[Sequence[int]] = []
+        parts: list[Sequence[Sequence[int]]] = []  # the atoms of each pattern that holds
         if any_of:
             found = [p for p in any_of if p in hits]
             if not found:
                 return Holds(False, rule.any_of, (), "no any_of pattern matches")
             for p in found:
                 smarts.append(texts[p])
-                atoms += matches.get(p, ())
+                parts.append(matches.get(p, ()))
         for p in all_of:
             if p not in hits:
                 return Holds(False, (texts[p],), (), "an all_of pattern does not match")
             smarts.append(texts[p])
-            atoms += matches.get(p, ())
+            parts.append(matches.get(p, ()))
         for p in none_of:
             if p in hits:
                 return Holds(False, (texts[p],), tuple(matches.get(p, ())), "a none_of pattern matches")
@@ -384,7 +388,8 @@ class RuleSet:
         for symbol in rule.lacks_elements:
             if symbol in outcome.elements:
                 return Holds(False, (), (), f"has {symbol}")
-        return Holds(True, tuple(smarts), tuple(atoms))
+        return Holds(True, tuple(smarts), tuple(parts[0]) if len(parts) == 1 else
+                     tuple(a for part in parts for a in part))
 
     # -- verdicts ---------------------------------------------------------------------------
     def verdicts(self, ontology: Ontology, term_ids: Iterable[str], structures: Mapping[str, Any],
@@ -443,18 +448,19 @@ class RuleSet:
         if outcome.error is not None:
             return [Verdict(term, "", "rule", "abstains", {"reason": outcome.error})]
         out = []
+        kinds = self._kinds
         for cls in sorted(lineage.union(implied)):
-            indices = self.by_class.get(cls, ())
-            if not indices:
+            split = kinds.get(cls)
+            if split is None:
                 if cls in implied:
                     r = implied[cls]
                     out.append(Verdict(term, cls, "rule", "supports",
                                        {**self._evidence(r, self.holds(r, outcome)),
                                         "implied_by": self.rules[r].cls}))
                 continue
-            failed = [i for i in indices if not holding[i] and self.rules[i].kind in _NECESSARY]
-            decided = failed or [i for i in indices if holding[i] and self.rules[i].kind in _SUFFICIENT] \
-                or [i for i in indices if holding[i] and self.rules[i].kind == "necessary"]
+            must, enough, only_necessary = split
+            failed = [i for i in must if not holding[i]]
+            decided = failed or [i for i in enough if holding[i]] or [i for i in only_necessary if holding[i]]
             if decided:
                 chosen = decided[0]
                 out.append(Verdict(term, cls, "rule", "opposes" if failed else "supports",
@@ -464,7 +470,7 @@ class RuleSet:
     def _evidence(self, index: int, holds: Holds) -> dict[str, Any]:
         rule = self.rules[index]
         data: dict[str, Any] = {"rule": rule.where, "kind": rule.kind, "smarts": list(holds.smarts),
-                                "atoms": [list(a) for a in holds.atoms]}
+                                "atoms": list(holds.atoms)}  # lists already (decoded JSON)
         if holds.reason:
             data["reason"] = holds.reason
         return data
