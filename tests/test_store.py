@@ -270,3 +270,28 @@ def test_stored_inchikey_index_gives_the_same_duplicates(two_commits: GitRepo, t
     assert len(built) == 1
     assert store.get(built[0], ETHANOL_KEY) == ["QQX:0000011", "QQX:0000012"]
     store.close()
+
+
+def test_stored_rows_come_back_page_by_page(two_commits: GitRepo, tmp_path: Path,
+                                            monkeypatch: pytest.MonkeyPatch) -> None:
+    """A whole snapshot's rows are stored in pages; read one at a time or all at once, every
+    term equals the parsed one (600 terms: three pages, the last one short)."""
+    from parentage.parse import parse_ontology_text
+    from parentage.workspace import ROW_PAGE, Workspace
+
+    monkeypatch.setenv("PARENTAGE_CACHE", str(tmp_path / "cache"))
+    text = OBO + "".join(f"\n[Term]\nid: QQX:{n:07d}\nname: term {n}\nis_a: QQX:0000001\n"
+                         f'synonym: "t{n}" EXACT []\n' for n in range(10, 610))
+    parsed = parse_ontology_text(text, "qqx.obo", "b" * 40)
+    assert len(parsed.terms) > 2 * ROW_PAGE
+    ws = Workspace(str(two_commits.path))
+    ws._put("b" * 40 + ":qqx.obo", parsed)
+    for walk in ("one by one", "all at once"):
+        ws._snapshots.clear()
+        again = ws._stored("b" * 40, "qqx.obo")
+        assert again is not None
+        if walk == "all at once":
+            again.terms.prefetch()
+        assert [again.terms[t] for t in reversed(list(again.terms))] == \
+            [parsed.terms[t] for t in reversed(list(parsed.terms))]
+    ws.close()

@@ -237,7 +237,7 @@ class TermTable(Mapping[str, Term]):
         self.lines = lines
         self.digests = digests
         self.rows = rows
-        self.index = {tid: n for n, tid in enumerate(ids)}  # later duplicates win
+        self.index = dict(zip(ids, range(len(ids))))  # later duplicates win
 
     @classmethod
     def of(cls, terms: Iterable[Term]) -> TermTable:
@@ -616,6 +616,24 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
     return snap
 
 
+class _OnePath(Mapping[str, str]):
+    """term id -> file, for an ontology of one file (no dict of every id)."""
+
+    def __init__(self, snap: Snapshot) -> None:
+        self.snap = snap
+
+    def __getitem__(self, tid: str) -> str:
+        if tid not in self.snap.terms:
+            raise KeyError(tid)
+        return self.snap.path
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self.snap.terms)
+
+    def __len__(self) -> int:
+        return len(self.snap.terms)
+
+
 class Ontology:
     """The union of the snapshots of every configured ontology file at one revision.
 
@@ -626,10 +644,11 @@ class Ontology:
     def __init__(self, revision: str, snapshots: Iterable[Snapshot]) -> None:
         self.revision = revision
         self.snapshots = tuple(snapshots)
-        self.path_of: dict[str, str] = {}
-        for snap in self.snapshots:
-            for tid in snap.terms:
-                self.path_of[tid] = snap.path
+        self.path_of: Mapping[str, str]
+        if len(self.snapshots) == 1:
+            self.path_of = _OnePath(self.snapshots[0])
+        else:
+            self.path_of = {tid: snap.path for snap in self.snapshots for tid in snap.terms}
         if len(self.snapshots) == 1:
             self.merged = self.snapshots[0]
         else:

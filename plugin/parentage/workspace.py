@@ -11,6 +11,7 @@ from parentage.snapshot import MAX_DERIVED_DEPTH, Ontology, Snapshot, StoredRows
 from parentage.store import Store, default_store_path
 
 ONTOLOGY_SUFFIXES = (".obo", ".json")
+ROW_PAGE = 256  # stored rows per store entry
 
 
 class Workspace:
@@ -62,31 +63,37 @@ class Workspace:
     def _put(self, key: str, snap: Snapshot) -> None:
         columns, rows = snap.to_bytes()
         if rows is not None:
-            # One entry per row, written before the columns that point at them.
-            self.store.put_many_bytes(f"snapshot-rows:{key}",
-                                      ((str(n), r.encode("utf-8", "surrogatepass"))
-                                       for n, r in enumerate(rows)), compress=False)
+            # Rows in pages of ROW_PAGE, written before the columns that point at them: a
+            # review reads the few pages its terms are on (class stanzas sit together).
+            pages = ((str(n // ROW_PAGE), "\x1e".join(rows[n:n + ROW_PAGE]).encode("utf-8", "surrogatepass"))
+                     for n in range(0, len(rows), ROW_PAGE))
+            self.store.put_many_bytes(f"snapshot-rows:{key}", pages, compress=False)
         # A whole snapshot's columns are stored uncompressed: they are read on every warm run.
         self.store.put_bytes("snapshot", key, columns, compress=rows is None)
 
-    def _rows(self, key: str) -> StoredRows:
+    def _rows(self, key: str, count: int) -> StoredRows:
         namespace = f"snapshot-rows:{key}"
-
         lost = ParentageError(f"the cache lost stored rows of {key.split(':', 1)[-1]}; delete "
                               "the cache folder and run again")
+        pages: dict[int, list[str]] = {}
 
-        def one(n: int) -> str:
-            raw = self.store.get_bytes(namespace, str(n))
+        def page(raw: bytes | None) -> list[str]:
             if raw is None:
                 raise lost
-            return raw.decode("utf-8", "surrogatepass")
+            return raw.decode("utf-8", "surrogatepass").split("\x1e")
+
+        def one(n: int) -> str:
+            number = n // ROW_PAGE
+            if number not in pages:
+                pages[number] = page(self.store.get_bytes(namespace, str(number)))
+            return pages[number][n % ROW_PAGE]
 
         def every() -> list[str]:
             found = self.store.get_all_bytes(namespace)
-            try:
-                return [found[str(n)].decode("utf-8", "surrogatepass") for n in range(len(found))]
-            except KeyError:
-                raise lost from None
+            out = [row for number in range(-(-count // ROW_PAGE)) for row in page(found.get(str(number)))]
+            if len(out) != count:
+                raise lost
+            return out
 
         return StoredRows(one, every)
 
@@ -106,7 +113,9 @@ class Workspace:
                 base = self._stored(*base_key, depth + 1) if depth < 2 * MAX_DERIVED_DEPTH else None
                 if base is None:
                     return None  # its base is gone from the store: parse again
-            rows = self._rows(f"{blob}:{path}") if base_key is None and "rows" not in stored else None
+            rows = None
+            if base_key is None and "rows" not in stored:
+                rows = self._rows(f"{blob}:{path}", stored["ids"].count("\n") + 1 if stored["ids"] else 0)
             snap = Snapshot.from_json(stored, base, rows)
         except (KeyError, TypeError, ValueError, IndexError):
             return None  # an entry of another layout: parse again and replace it
