@@ -87,11 +87,20 @@ def _digest(text: str) -> str:
     return hashlib.blake2b(text.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
 
 
-def _blocks(text: str, starts: Sequence[int]) -> list[str]:
+def _blocks(text: str, starts: Sequence[int], known: dict[int, str] | None = None) -> list[str]:
     """Digest of each run of BLOCK stanzas (from a stanza's start to the next run's start, or
-    the end of the text): what a later revision compares its text with."""
-    cut = [starts[k] for k in range(0, len(starts), BLOCK)] + [len(text)]
-    return [_digest(text[cut[j]:cut[j + 1]]) for j in range(len(cut) - 1)]
+    the end of the text): what a later revision compares its text with. `known` gives the
+    digests of runs already hashed (block number -> digest)."""
+    known = known or {}
+    total = -(-len(starts) // BLOCK)
+    out = []
+    for j in range(total):
+        digest = known.get(j)
+        if digest is None:
+            stop = starts[(j + 1) * BLOCK] if (j + 1) * BLOCK < len(starts) else len(text)
+            digest = _digest(text[starts[j * BLOCK]:stop])
+        out.append(digest)
+    return out
 
 
 def _layout(text: str, header: str, stanzas: list[_obo.Stanza]) -> Layout:
@@ -123,6 +132,8 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
     fresh: list[tuple[int, _obo.Stanza]] = []
     at, k, line = first, 0, header_text.count("\n") + 1
     size = len(text)
+    head_k = 0  # stanzas of the head so far
+    same_blocks: dict[int, str] = {}  # head block number -> digest, where a whole base block lands
     while at < size:
         if k < count and k % BLOCK == 0:
             after = min(k + BLOCK, count)
@@ -130,7 +141,10 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
             if stop <= size and (stop == size or _obo.is_stanza_line(text, stop)) and \
                     _digest(text[at:stop]) == blocks[k // BLOCK]:
                 segments.append(("copy", k, after - k, at - starts[k], line - layout.lines[k]))
+                if head_k % BLOCK == 0 and (after - k == BLOCK or stop == size):
+                    same_blocks[head_k // BLOCK] = blocks[k // BLOCK]  # the same text, hashed
                 line += text.count("\n", at, stop)
+                head_k += after - k
                 at, k = stop, after
                 continue
         # Split the next head stanza on its own.
@@ -156,6 +170,7 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
             fresh.append((len(segments), stanza))
             segments.append(("new", at, line, None))
         line += text.count("\n", at, stop)
+        head_k += 1
         at = stop
     parsed = _obo.parse_stanzas([s for _, s in fresh], path)
     # After the stanzas, as a full parse does, so the same error is reported first.
@@ -167,6 +182,6 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
         segments[place] = ("new", stanza.offset, stanza.line, term)
     snap = derived(path, blob, header, base, segments)
     assert snap.layout is not None
-    snap.layout = snap.layout._replace(blocks=_blocks(text, snap.layout.starts), size=size,
+    snap.layout = snap.layout._replace(blocks=_blocks(text, snap.layout.starts, same_blocks), size=size,
                                        header=_digest(header_text))
     return snap
