@@ -29,7 +29,6 @@ class ModelSettings:
     size: int = 16384  # 2048 bits lose ~2.5 points of micro-F1 to collisions (bench_model.py)
     folds: int = 5
     min_f1: float = 0.8  # a class's cross-validated F1 needed for its model verdicts to count
-    min_precision: float = 0.9  # a class's out-of-fold precision needed to trust its verdicts (Model.class_trust)
     min_similarity: float = 0.3  # below this Tanimoto to every training member: abstain
     retrain_after: int = 200  # changed structured terms since training before a retrain
     seed: int = 0

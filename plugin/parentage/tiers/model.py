@@ -12,7 +12,7 @@ import hashlib
 import io
 import json
 from collections.abc import Iterable, Mapping, Sequence
-from dataclasses import asdict
+from dataclasses import asdict, fields
 from typing import Any, NamedTuple
 
 import numpy as np
@@ -322,7 +322,8 @@ class Model:
             meta = json.loads(arrays.pop("meta").tobytes())
         except (ValueError, OSError, KeyError, json.JSONDecodeError) as exc:
             raise ParentageError(f"stored model is unreadable ({exc}); delete the cache and retrain") from None
-        if meta.get("format") != FORMAT:
+        known = {f.name for f in fields(ModelSettings)}
+        if meta.get("format") != FORMAT or set(meta.get("settings", {})) != known:
             raise ParentageError("stored model has an older layout; run 'parentage model train'")
         return cls(arrays, meta)
 

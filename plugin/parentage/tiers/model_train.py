@@ -45,17 +45,16 @@ SVM_C = 0.5  # chosen on the functional-group benchmark among 0.1, 0.5, 1 (bench
 # Measured on one fold of the 50k speed set: tol 1e-2 fits in 3/4 of the time of 1e-4 at the
 # same held-out micro-F1 (0.9948 vs 0.9952); 1e-1 loses half a point.
 SVM_TOL = 1e-2
-# One fit's rows: up to POS_CAP members of the class; as many members of its parents that are
-# not in it (hard negatives), and again as many of the rest (random negatives): NEG_PER_POS per
-# positive, at least NEG_MIN, at most NEG_CAP each. Measured on the generated 50k ontology (930
-# classes, most of 21-54 members): a fit costs ~15 ms of fixed work plus ~12 ms per 1000 rows.
-POS_CAP = 2000
-NEG_PER_POS = 2
-NEG_MIN = 300
-NEG_CAP = 2000
+# One fit's rows: the class's members, as many members of its parents that are not in it (hard
+# negatives), and as many of the rest (random negatives), each part capped at
+# max(ROWS_MIN, ROW_BUDGET / classes): a few classes learn from every member, a thousand from
+# samples. Measured on the generated 50k ontology (930 classes, most of 21-54 members): a fit
+# costs ~8 ms of fixed work plus ~3-5 ms per 1000 rows.
+ROW_BUDGET = 600_000
+ROWS_MIN = 600
 CLEAN_ROUNDS = 0
 BINS = 512  # score histogram bins per class for Platt scaling and thresholds
-EVAL_SAMPLE = 4000
+EVAL_SAMPLE = 2000
 # Opposing a curated class needs a calibrated probability of at most OPPOSE_P (at most one term
 # in a hundred with that score is filed there), suggesting one at least SUGGEST_P (four in five).
 OPPOSE_P = 0.01
@@ -84,20 +83,21 @@ def labels(members: Sequence[Member], classes: Sequence[str]) -> np.ndarray:
 
 def hard_negatives(members: Sequence[Member], classes: Sequence[str], ontology: Ontology) -> list[np.ndarray]:
     """Per class, the members of its direct parents that are not its members."""
-    rows_of: dict[str, list[int]] = {}
-    for i, m in enumerate(members):
-        for c in m.ancestors:
-            rows_of.setdefault(c, []).append(i)
-    everyone = np.arange(len(members))
-    out = []
+    parents = []
     for cls in classes:
         term = ontology.terms.get(cls)
-        parents = [p for p in (term.parents if term is not None else ()) if p != cls]
-        inside = set(rows_of.get(cls, ()))
-        rows: set[int] = set()
-        for p in parents:
-            rows.update(rows_of.get(p, everyone.tolist() if p not in ontology.terms else ()))
-        out.append(np.array(sorted(rows - inside), dtype=np.int64))
+        parents.append([p for p in (term.parents if term is not None else ()) if p != cls])
+    wanted = sorted({p for ps in parents for p in ps} | set(classes))
+    column = {c: j for j, c in enumerate(wanted)}
+    inside = labels(members, wanted).astype(bool)
+    everyone = np.ones(len(members), dtype=bool)
+    out = []
+    for cls, ps in zip(classes, parents):
+        # A parent that is not a defined term (dangling) or has no member here counts as the root.
+        rows = np.zeros(len(members), dtype=bool)
+        for p in ps:
+            rows |= inside[:, column[p]] if p in ontology.terms else everyone
+        out.append(np.flatnonzero(rows & ~inside[:, column[cls]]))
     return out
 
 
@@ -122,11 +122,14 @@ def fit_class(x: sparse.csr_matrix, pos: np.ndarray, neg: np.ndarray, seed: int)
     return used.astype(np.int32), svm.coef_.ravel().astype(np.float32), float(svm.intercept_[0])
 
 
+def row_cap(classes: int) -> int:
+    return max(ROWS_MIN, ROW_BUDGET // max(classes, 1))
+
+
 def training_rows(pos: np.ndarray, hard: np.ndarray, pool: np.ndarray, is_member: np.ndarray,
-                  rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
-    """(positives, negatives) of one fit, bounded: see the caps above."""
-    pos = _sample(pos, POS_CAP, rng)
-    want = int(np.clip(NEG_PER_POS * len(pos), NEG_MIN, NEG_CAP))
+                  rng: np.random.Generator, want: int) -> tuple[np.ndarray, np.ndarray]:
+    """(positives, negatives) of one fit, each part at most `want` rows (`row_cap`)."""
+    pos = _sample(pos, want, rng)
     neg = _sample(hard, want, rng)
     others = _sample(pool, want + len(pos) + len(neg), rng)
     others = others[~is_member[others] & ~np.isin(others, neg)][:want]
@@ -144,7 +147,7 @@ def _fit_task(task: tuple[int, int]) -> tuple[int, int, tuple[np.ndarray, np.nda
     keep = w["keep"][f] if w["skip"] is None else w["keep"][f] & ~w["skip"][j]
     positives, hard = w["positives"][j], w["hard"][j]
     pos, neg = training_rows(positives[keep[positives]], hard[keep[hard]], w["pools"][f],
-                             w["yt"][j] == 1, rng)
+                             w["yt"][j] == 1, rng, w["cap"])
     return f, j, fit_class(w["x"], pos, neg, w["seed"])
 
 
@@ -166,7 +169,7 @@ def fold_fits(x: sparse.csr_matrix, y: np.ndarray, fold: np.ndarray, hard: list[
     total = np.zeros((x.shape[1], k_classes), dtype=np.float32)
     total_bias = np.zeros(k_classes, dtype=np.float32)
     yt = np.ascontiguousarray(y.T)
-    _WORK.update(x=x, yt=yt, seed=seed, hard=hard, positives=[np.flatnonzero(r) for r in yt],
+    _WORK.update(x=x, yt=yt, seed=seed, cap=row_cap(k_classes), hard=hard, positives=[np.flatnonzero(r) for r in yt],
                  keep=[fold != f for f in range(k)], pools=[np.flatnonzero(fold != f) for f in range(k)],
                  skip=None if skip is None else np.ascontiguousarray(skip.T))
     tasks = [(f, j) for f in range(k) for j in range(k_classes)]
@@ -331,9 +334,8 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
         "format": FORMAT, "classes": classes, "settings": asdict(settings), "revision": revision,
         "blobs": {s.path: s.blob for s in ontology.snapshots},
         "excluded": excluded,
-        "estimator": (f"linear SVM per class (C={SVM_C}) on up to {POS_CAP} members, {NEG_PER_POS} of its "
-                      f"parents' other members and {NEG_PER_POS} others per member ({NEG_MIN}-{NEG_CAP} "
-                      f"each); mean of {k} fold models, + Platt"),
+        "estimator": (f"linear SVM per class (C={SVM_C}) on up to {row_cap(len(classes))} members, as many of "
+                      f"its parents' other members and as many others; mean of {k} fold models, + Platt"),
         "ancestors": {c: sorted(a) for c, a in ancestors.items()},
         "disjoint": [list(p) for p in disjoint],
     }
