@@ -225,11 +225,13 @@ def check_pair_once(base_text: str, head_text: str) -> None:
                 continue
             assert_same(full[1], incremental[1])
             assert incremental[1].layout == full[1].layout
+            assert incremental[1].disjoint == full[1].disjoint
             if incremental[1].base is not None:
                 # A derived head is stored as segments over its base; read back it is the same.
                 again = Snapshot.from_json(json.loads(json.dumps(incremental[1].to_json())), reused)
                 assert_same(full[1], again)
                 assert again.layout == full[1].layout
+                assert again.disjoint == full[1].disjoint
 
 
 @st.composite

@@ -38,10 +38,7 @@ def disjoint_findings(ontology: Ontology, term_ids: Iterable[str]) -> list[Findi
         lineage = ontology.ancestors(tid) | {tid}
         seen: set[tuple[str, str]] = set()
         for cls in sorted(lineage):
-            cterm = ontology.terms.get(cls)
-            if cterm is None:
-                continue
-            for other in cterm.disjoint_from:
+            for other in ontology.disjoint_of(cls):
                 pair = (min(cls, other), max(cls, other))
                 if other in lineage and pair not in seen:
                     seen.add(pair)
@@ -116,9 +113,7 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
     # Suggestions: supported, not implied, not forbidden.
     forbidden: set[str] = set()
     for cls in lineage | {tid}:
-        cterm = ontology.terms.get(cls)
-        if cterm is not None:
-            forbidden.update(cterm.disjoint_from)
+        forbidden.update(ontology.disjoint_of(cls))
     candidates: dict[str, tuple[int, float]] = {}
     for cls in set(rules) | set(model):
         if cls == tid or cls in lineage or cls in forbidden or cls not in ontology.terms:

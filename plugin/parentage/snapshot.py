@@ -347,6 +347,7 @@ class Snapshot:
         self.header = header
         self.terms: TermTable = terms if isinstance(terms, TermTable) else TermTable.of(terms)
         self.layout = layout
+        self._disjoint: dict[str, tuple[str, ...]] | None = None  # see `disjoint`
         # Set when built from a base by copying runs of its stanzas (see `derived`).
         self.base: Snapshot | None = None
         self.segments: list[Segment] = []
@@ -379,6 +380,18 @@ class Snapshot:
     def is_obsolete(self, term_id: str) -> bool:
         n = self.terms.index.get(term_id)
         return n is not None and self.terms.obsolete[n]
+
+    @property
+    def disjoint(self) -> dict[str, tuple[str, ...]]:
+        """id -> disjoint_from targets, for the terms that declare any (a few, usually): kept
+        beside the columns so the axioms of the whole file are known without decoding rows."""
+        if self._disjoint is None:
+            self.terms.prefetch()
+            self._disjoint = {t.id: t.disjoint_from for t in self.terms.values() if t.disjoint_from}
+        return self._disjoint
+
+    def disjoint_of(self, term_id: str) -> tuple[str, ...]:
+        return self.disjoint.get(term_id, ())
 
     @cached_property
     def parent_ids(self) -> frozenset[str]:
@@ -474,6 +487,7 @@ class Snapshot:
                 "lines": [x for n in pos for x in table.lines[n]],
                 "digests": "\n".join(table.digests[n] for n in pos),
                 "rows": "\x1e".join(table.row_of(t) for t in ids),
+                "disjoint": self.disjoint,
                 "layout": None if layout is None else
                 [list(layout.starts), list(layout.lines), "".join("1" if t else "0" for t in layout.terms),
                  list(layout.blocks), layout.size, layout.header]}
@@ -507,7 +521,10 @@ class Snapshot:
         stored = data.get("layout")
         layout = None if stored is None else Layout(stored[0], stored[1], list(map("1".__eq__, stored[2])),
                                                     stored[3], stored[4], stored[5])
-        return cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
+        snap = cls(data["path"], data["blob"], table, tuple(tuple(h) for h in data["header"]), layout)
+        if "disjoint" in data:
+            snap._disjoint = {k: tuple(v) for k, v in data["disjoint"].items()}
+        return snap
 
     def to_bytes(self) -> tuple[bytes, list[str] | None]:
         """The store form as bytes, and the rows to store one per term (None when they are
@@ -613,6 +630,18 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
     snap.segments = segments
     snap.copied = copied
     snap.depth = base.depth + 1
+    if base._disjoint is not None:
+        # A base axiom stays where its stanza was copied; new stanzas bring their own.
+        table = snap.terms
+        kept = {tid: targets for tid, targets in base._disjoint.items()
+                if (n := table.index.get(tid)) is not None
+                and table.digests[n] == old.digests[old.index[tid]]}  # the same stanza text
+        for seg in segments:
+            if seg[0] == "new" and seg[3] is not None:
+                kept.pop(seg[3].id, None)
+                if seg[3].disjoint_from:
+                    kept[seg[3].id] = seg[3].disjoint_from
+        snap._disjoint = kept
     return snap
 
 
@@ -669,6 +698,14 @@ class Ontology:
 
     def ancestors(self, term_id: str) -> frozenset[str]:
         return self.merged.ancestors(term_id)
+
+    def disjoint_of(self, term_id: str) -> tuple[str, ...]:
+        """The disjoint_from targets a term declares, without decoding it."""
+        if len(self.snapshots) == 1:
+            return self.snapshots[0].disjoint_of(term_id)
+        path = self.path_of.get(term_id)
+        found = [s for s in self.snapshots if s.path == path]
+        return found[0].disjoint_of(term_id) if found else ()
 
     def descendants(self, term_id: str) -> frozenset[str]:
         return self.merged.descendants(term_id)
