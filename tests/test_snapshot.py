@@ -379,3 +379,20 @@ def test_mentioning_finds_every_reference_without_decoding() -> None:
     assert expected == {"QQX:2", "QQX:3"}
     assert expected <= found
     assert "QQX:4" not in found
+
+
+@pytest.mark.parametrize("chunk", [1, 7])
+def test_parsing_in_chunks_changes_nothing(chunk: int, monkeypatch: pytest.MonkeyPatch) -> None:
+    """fastobo sees a big file in chunks (memory); terms and the first error's line agree with
+    one chunk. Reference for the error: fastobo on the whole document."""
+    from parentage import _obo
+
+    text = "format-version: 1.2\n" + "".join(f"\n[Term]\nid: QQX:{n:07d}\nname: t{n}\n" for n in range(30))
+    bad = text + f"\n[Term]\nid: QQX:0000099\n{BAD_LINE}\n" + "".join(
+        f"\n[Term]\nid: QQX:{n:07d}\nname: u{n}\n" for n in range(100, 110))
+    whole = full(text)
+    monkeypatch.setattr(_obo, "PARSE_CHUNK", chunk)
+    assert list(full(text).terms.values()) == list(whole.terms.values())
+    with pytest.raises(ParentageError) as caught:
+        full(bad)
+    assert str(caught.value).startswith(f"qqx.obo:{_fastobo_line(bad)}: ")
