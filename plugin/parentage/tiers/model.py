@@ -385,9 +385,11 @@ class Model:
         return self.changed_members(members) < config.model.retrain_after
 
     # -- scoring --------------------------------------------------------------------------------
-    def scores(self, bits: Sequence[np.ndarray], chunk: int = 1024) -> np.ndarray:
+    def scores(self, bits: Sequence[np.ndarray], chunk: int | None = None) -> np.ndarray:
         """Raw linear scores of the model for terms outside training."""
         weights, k = self.arrays["weights"], len(self.classes)
+        # The gathered (bit, class) rows of a chunk stay near 16 MB however many classes.
+        chunk = chunk or max(16, 4_000_000 // (64 * max(k, 1)))
         out = np.tile(self.arrays["bias"].astype(np.float32), (len(bits), 1))
         for start in range(0, len(bits), chunk):
             part = bits[start:start + chunk]
