@@ -11,6 +11,12 @@ structure. RDKit cannot be interrupted from Python, so the matching runs in a fo
 process that is killed when one structure takes too long; that structure is reported as
 timed out and the worker starts again after it.
 
+What a search costs is mostly RDKit's fixed cost per call (about as much for a one-atom
+query that matches nothing as for a recursive one), so the work saved is calls not made:
+screens in bulk, one quick search of a skeleton that several patterns share, one search
+that stops at the first match where no atoms are asked for, and one RDKit call to read a
+short SMILES in a worker.
+
 Rule proposal helpers live here too (they need RDKit): atom environments written as SMARTS
 and a bounded maximum common substructure.
 """
