@@ -36,7 +36,7 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
         PARSE_CALLS["full"] += 1
         return Snapshot(path, blob, parse_json(text, path))
     text = _obo.normalise(text)
-    if base is not None and not by_digest and base.reusable:
+    if base is not None and not by_digest and base.reusable and _has_blocks(base):
         PARSE_CALLS["compared"] += 1
         return _compared(text, path, blob, base)
     header, stanzas = _obo.split(text, path)
@@ -101,6 +101,12 @@ def _blocks(text: str, starts: Sequence[int], known: dict[int, str] | None = Non
             digest = _digest(text[starts[j * BLOCK]:stop])
         out.append(digest)
     return out
+
+
+def _has_blocks(base: Snapshot) -> bool:
+    """The base has one stored digest per run of BLOCK stanzas (as this version cuts them)."""
+    layout = base.layout
+    return layout is not None and len(layout.blocks) == -(-len(layout.starts) // BLOCK)
 
 
 def _layout(text: str, header: str, stanzas: list[_obo.Stanza]) -> Layout:
