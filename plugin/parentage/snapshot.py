@@ -631,16 +631,19 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
     snap.copied = copied
     snap.depth = base.depth + 1
     if base._disjoint is not None:
-        # A base axiom stays where its stanza was copied; new stanzas bring their own.
+        # The term each id resolves to (a later duplicate wins) is a new stanza, with its own
+        # axioms, or a copy of a base stanza, with the base's.
         table = snap.terms
-        kept = {tid: targets for tid, targets in base._disjoint.items()
-                if (n := table.index.get(tid)) is not None
-                and table.digests[n] == old.digests[old.index[tid]]}  # the same stanza text
-        for seg in segments:
-            if seg[0] == "new" and seg[3] is not None:
-                kept.pop(seg[3].id, None)
-                if seg[3].disjoint_from:
-                    kept[seg[3].id] = seg[3].disjoint_from
+        news = [seg[3].id for seg in segments if seg[0] == "new" and seg[3] is not None]
+        kept = {}
+        for tid in (*base._disjoint, *news):
+            n = table.index.get(tid)
+            if n is None:
+                continue
+            row = table.rows[n]
+            targets = row.disjoint_from if isinstance(row, Term) else base._disjoint.get(tid, ())
+            if targets:
+                kept[tid] = targets
         snap._disjoint = kept
     return snap
 
