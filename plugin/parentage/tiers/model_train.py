@@ -350,7 +350,7 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
     flat = np.concatenate(kept)
     # The model for terms outside training is the mean of the fold models: no extra fit, and
     # its scores keep the scale the out-of-fold Platt parameters were fitted on.
-    arrays = {"weights": (total / k).astype(np.float16), "bias": (total_bias / k).astype(np.float32),
+    arrays: dict[str, np.ndarray] = {"weights": (total / k).astype(np.float16), "bias": (total_bias / k).astype(np.float32),
               "platt": calib, "thresholds": thresholds, "low": low, "high": high, "ref_fold": fold,
               "oof_ptr": oof_ptr, "oof_class": oof_class, "oof_prob": oof_prob,
               "member_hash": np.array([bits_hash(b) for b in kept], dtype=np.uint64),
