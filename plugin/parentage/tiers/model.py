@@ -635,8 +635,7 @@ def hierarchy_of(ontology: Ontology, classes: Iterable[str]) -> tuple[dict[str, 
     known = set(ancestors).union(*ancestors.values()) if ancestors else set()
     pairs = set()
     for cls in known:
-        term = ontology.terms.get(cls)
-        for other in term.disjoint_from if term is not None else ():
+        for other in ontology.disjoint_of(cls):  # the axioms are kept beside the columns
             if other in known and other != cls:
                 pairs.add(tuple(sorted((cls, other))))
     return ancestors, sorted(pairs)  # type: ignore[arg-type]
@@ -677,7 +676,9 @@ def load_or_train(ontology: Ontology, config: Config, store: Store, exclude: Ite
 
     model = train(ontology, config, store, exclude, revision, progress=progress)
     if model is not None:
-        store.put_bytes(NAMESPACE, key, model.to_bytes())
+        # Uncompressed: inflating ~40 MB of weights cost more than reading them (0.2-0.3 s of a
+        # warm review); the weights are float16 and compress poorly anyway.
+        store.put_bytes(NAMESPACE, key, model.to_bytes(), compress=False)
         store.put(LATEST, _latest_key(ontology, config.model), key)
     return model
 
