@@ -44,8 +44,10 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
     if base is None:
         PARSE_CALLS["full"] += 1
         terms = _obo.parse_stanzas(stanzas, path)
-        return Snapshot(path, blob, terms, _obo.header_pairs(header, path),
+        snap = Snapshot(path, blob, terms, _obo.header_pairs(header, path),
                         _layout(text, header_text, stanzas))
+        snap.disjoint  # from the parsed terms, while they are at hand  # noqa: B018
+        return snap
     PARSE_CALLS["incremental"] += 1
     old = base.terms
     known = {old.digests[n]: n for n in old.index.values()}
@@ -79,8 +81,19 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
         digests.append(stanza.digest)
     table = TermTable(ids, parents, obsolete, lines, digests, rows)
     # Headers are short: parsing them again is cheaper than proving them unchanged.
-    return Snapshot(path, blob, table, _obo.header_pairs(header, path),
+    snap = Snapshot(path, blob, table, _obo.header_pairs(header, path),
                     _layout(text, header_text, stanzas))
+    known = base.known_disjoint
+    if known is not None:
+        # A reused row has its base stanza's text, so its axioms; a parsed one brings its own.
+        axioms = {}
+        for tid, n in table.index.items():
+            row = rows[n]
+            targets = row.disjoint_from if isinstance(row, Term) else known.get(tid, ())
+            if targets:
+                axioms[tid] = targets
+        snap.known_disjoint = axioms
+    return snap
 
 
 def _digest(text: str) -> str:

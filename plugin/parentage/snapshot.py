@@ -393,6 +393,15 @@ class Snapshot:
     def disjoint_of(self, term_id: str) -> tuple[str, ...]:
         return self.disjoint.get(term_id, ())
 
+    @property
+    def known_disjoint(self) -> dict[str, tuple[str, ...]] | None:
+        """The axioms if already known (stored, or carried from a base), else None."""
+        return self._disjoint
+
+    @known_disjoint.setter
+    def known_disjoint(self, value: dict[str, tuple[str, ...]]) -> None:
+        self._disjoint = value
+
     @cached_property
     def parent_ids(self) -> frozenset[str]:
         """Every id some term names as a parent (cheaper than the children map)."""
