@@ -83,13 +83,13 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
     # Headers are short: parsing them again is cheaper than proving them unchanged.
     snap = Snapshot(path, blob, table, _obo.header_pairs(header, path),
                     _layout(text, header_text, stanzas))
-    known = base.known_disjoint
-    if known is not None:
+    before = base.known_disjoint
+    if before is not None:
         # A reused row has its base stanza's text, so its axioms; a parsed one brings its own.
-        axioms = {}
+        axioms: dict[str, tuple[str, ...]] = {}
         for tid, n in table.index.items():
             row = rows[n]
-            targets = row.disjoint_from if isinstance(row, Term) else known.get(tid, ())
+            targets = row.disjoint_from if isinstance(row, Term) else before.get(tid, ())
             if targets:
                 axioms[tid] = targets
         snap.known_disjoint = axioms
