@@ -396,3 +396,23 @@ def test_parsing_in_chunks_changes_nothing(chunk: int, monkeypatch: pytest.Monke
     with pytest.raises(ParentageError) as caught:
         full(bad)
     assert str(caught.value).startswith(f"qqx.obo:{_fastobo_line(bad)}: ")
+
+
+def test_head_built_on_a_built_head_equals_full_parse(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Commit after commit, each head is built from the previous derived one (as the commit
+    path does); every step, and its stored form read back, equals a full parse."""
+    monkeypatch.setattr(parse, "BLOCK", 2)  # several blocks in a small document
+    steps = [DOC]
+    for change in (EDITS[0].values[0], _add_on_top, EDITS[2].values[0], _reverse_terms,
+                   lambda t: t + "\n[Term]\nid: QQX:0000042\nname: late\nis_a: QQX:0000001\n"):
+        steps.append(change(steps[-1]))
+    previous = full(steps[0])
+    for text in steps[1:]:
+        built = parse_ontology_text(text, "qqx.obo", "b", previous)
+        whole = full(text)
+        again = Snapshot.from_json(json.loads(json.dumps(built.to_json())), previous)
+        for snap in (built, again):
+            assert list(snap.terms.values()) == list(whole.terms.values())
+            assert snap.layout == whole.layout and snap.disjoint == whole.disjoint
+        assert built.depth == previous.depth + 1
+        previous = built
