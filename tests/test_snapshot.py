@@ -403,8 +403,12 @@ def test_head_built_on_a_built_head_equals_full_parse(monkeypatch: pytest.Monkey
     path does); every step, and its stored form read back, equals a full parse."""
     monkeypatch.setattr(parse, "BLOCK", 2)  # several blocks in a small document
     steps = [DOC]
-    for change in (EDITS[0].values[0], _add_on_top, EDITS[2].values[0], _reverse_terms,
-                   lambda t: t + "\n[Term]\nid: QQX:0000042\nname: late\nis_a: QQX:0000001\n"):
+    changes: list[Callable[[str], str]] = [
+        lambda t: t.replace("name: alcohol", "name: alcohols"), _add_on_top,
+        lambda t: t.replace("[Term]\nid: QQX:0000002\nname: carboxylic acid\n", "[Term]\nid: QQX:0000002\n"),
+        _reverse_terms,
+        lambda t: t + "\n[Term]\nid: QQX:0000042\nname: late\nis_a: QQX:0000001\n"]
+    for change in changes:
         steps.append(change(steps[-1]))
     previous = full(steps[0])
     for text in steps[1:]:
