@@ -7,7 +7,7 @@ from typing import Any
 
 from parentage import _obo
 from parentage.errors import ParentageError
-from parentage.snapshot import Layout, Segment, Snapshot, Term, TermTable, derived
+from parentage.snapshot import Layout, Segment, Snapshot, Term, TermTable, carried_axioms, derived
 
 # Counts full and incremental parser runs; tests use it to show the store spares a parse.
 PARSE_CALLS = {"full": 0, "incremental": 0, "compared": 0}
@@ -44,15 +44,14 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
     if base is None:
         PARSE_CALLS["full"] += 1
         terms = _obo.parse_stanzas(stanzas, path)
-        snap = Snapshot(path, blob, terms, _obo.header_pairs(header, path),
+        return Snapshot(path, blob, terms, _obo.header_pairs(header, path),
                         _layout(text, header_text, stanzas))
-        snap.disjoint  # from the parsed terms, while they are at hand  # noqa: B018
-        return snap
     PARSE_CALLS["incremental"] += 1
     old = base.terms
     known = {old.digests[n]: n for n in old.index.values()}
     fresh = [s for s in stanzas if s.kind != "Term" or s.digest not in known]
-    parsed = iter(_obo.parse_stanzas(fresh, path))
+    parsed_terms = _obo.parse_stanzas(fresh, path)
+    parsed = iter(parsed_terms)
     ids: list[str] = []
     parents: list[tuple[str, ...]] = []
     obsolete: list[bool] = []
@@ -85,14 +84,7 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
                     _layout(text, header_text, stanzas))
     before = base.known_disjoint
     if before is not None:
-        # A reused row has its base stanza's text, so its axioms; a parsed one brings its own.
-        axioms: dict[str, tuple[str, ...]] = {}
-        for tid, n in table.index.items():
-            row = rows[n]
-            targets = row.disjoint_from if isinstance(row, Term) else before.get(tid, ())
-            if targets:
-                axioms[tid] = targets
-        snap.known_disjoint = axioms
+        snap.known_disjoint = carried_axioms(table, before, [t.id for t in parsed_terms])
     return snap
 
 

@@ -345,9 +345,13 @@ class Snapshot:
         self.path = path
         self.blob = blob
         self.header = header
-        self.terms: TermTable = terms if isinstance(terms, TermTable) else TermTable.of(terms)
         self.layout = layout
         self._disjoint: dict[str, tuple[str, ...]] | None = None  # see `disjoint`
+        if isinstance(terms, TermTable):
+            self.terms: TermTable = terms
+        else:
+            self.terms = TermTable.of(terms)
+            self.disjoint  # every row is a Term: the axioms cost one pass now  # noqa: B018
         # Set when built from a base by copying runs of its stanzas (see `derived`).
         self.base: Snapshot | None = None
         self.segments: list[Segment] = []
@@ -640,21 +644,29 @@ def derived(path: str, blob: str | None, header: tuple[tuple[str, str], ...], ba
     snap.copied = copied
     snap.depth = base.depth + 1
     if base._disjoint is not None:
-        # The term each id resolves to (a later duplicate wins) is a new stanza, with its own
-        # axioms, or a copy of a base stanza, with the base's.
-        table = snap.terms
         news = [seg[3].id for seg in segments if seg[0] == "new" and seg[3] is not None]
-        kept = {}
-        for tid in (*base._disjoint, *news):
-            n = table.index.get(tid)
-            if n is None:
-                continue
-            row = table.rows[n]
-            targets = row.disjoint_from if isinstance(row, Term) else base._disjoint.get(tid, ())
-            if targets:
-                kept[tid] = targets
-        snap._disjoint = kept
+        snap._disjoint = carried_axioms(snap.terms, base._disjoint, news)
     return snap
+
+
+def carried_axioms(table: TermTable, before: Mapping[str, tuple[str, ...]],
+                   fresh: Iterable[str]) -> dict[str, tuple[str, ...]]:
+    """The disjointness axioms of a table built from a base's rows and freshly parsed terms.
+
+    Only ids the base declared axioms for (`before`) or that were parsed again (`fresh`) can
+    have any. Each id resolves to one row (a later duplicate wins): a decoded or parsed `Term`
+    brings its own axioms, a row still in its stored form is a copy of the base's stanza.
+    """
+    out = {}
+    for tid in (*before, *fresh):
+        n = table.index.get(tid)
+        if n is None:
+            continue
+        row = table.rows[n]
+        targets = row.disjoint_from if isinstance(row, Term) else before.get(tid, ())
+        if targets:
+            out[tid] = targets
+    return out
 
 
 class _OnePath(Mapping[str, str]):
