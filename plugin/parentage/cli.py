@@ -8,8 +8,6 @@ from __future__ import annotations
 import importlib
 import os
 import sys
-import tempfile
-import traceback
 from collections.abc import Sequence
 
 from parentage import __version__
@@ -65,6 +63,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except BrokenPipeError:
         return 0
     except Exception as exc:  # noqa: BLE001 - the last resort: no traceback on the terminal, a log instead
+        import tempfile  # only here: every run would otherwise pay for importing them
+        import traceback
+
         fd, log = tempfile.mkstemp(prefix="parentage-error-", suffix=".log")
         with os.fdopen(fd, "w") as handle:
             handle.write(f"parentage {__version__}\nargs: {args!r}\n\n")

@@ -26,26 +26,29 @@ def decode(data: bytes, path: str) -> str:
 
 
 def parse_ontology_text(text: str, path: str, blob: str | None = None,
-                        base: Snapshot | None = None, by_digest: bool = False) -> Snapshot:
+                        base: Snapshot | None = None, by_digest: bool = False,
+                        data: bytes | None = None) -> Snapshot:
     """Parse `text`. With `base`, reuse every term whose stanza text is unchanged: found by
     comparing runs of stanzas with the base's block digests, or (`by_digest`, or a base that
-    cannot be compared) by the digest of every head stanza."""
+    cannot be compared) by the digest of every head stanza. `data`, the bytes `text` was
+    decoded from, lets block digests be taken from the bytes in place."""
     if path.endswith(".json"):
         from parentage._obojson import parse_json
 
         PARSE_CALLS["full"] += 1
         return Snapshot(path, blob, parse_json(text, path))
     text = _obo.normalise(text)
+    source = _Source(text, data)
     if base is not None and not by_digest and base.reusable and _has_blocks(base):
         PARSE_CALLS["compared"] += 1
-        return _compared(text, path, blob, base)
+        return _compared(source, path, blob, base)
     header, stanzas = _obo.split(text, path)
     header_text = text[: stanzas[0].offset] if stanzas else text
     if base is None:
         PARSE_CALLS["full"] += 1
         terms = _obo.parse_stanzas(stanzas, path)
         return Snapshot(path, blob, terms, _obo.header_pairs(header, path),
-                        _layout(text, header_text, stanzas))
+                        _layout(source, header_text, stanzas))
     PARSE_CALLS["incremental"] += 1
     old = base.terms
     known = {old.digests[n]: n for n in old.index.values()}
@@ -81,18 +84,37 @@ def parse_ontology_text(text: str, path: str, blob: str | None = None,
     table = TermTable(ids, parents, obsolete, lines, digests, rows)
     # Headers are short: parsing them again is cheaper than proving them unchanged.
     snap = Snapshot(path, blob, table, _obo.header_pairs(header, path),
-                    _layout(text, header_text, stanzas))
+                    _layout(source, header_text, stanzas))
     before = base.known_disjoint
     if before is not None:
         snap.known_disjoint = carried_axioms(table, before, [t.id for t in parsed_terms])
     return snap
 
 
-def _digest(text: str) -> str:
-    return hashlib.blake2b(text.encode("utf-8", "surrogatepass"), digest_size=16).hexdigest()
+def _digest(data: bytes | memoryview) -> str:
+    # SHA-256 rather than a faster non-cryptographic hash: a block whose digest matches is
+    # copied unread, and a pull request's text is untrusted.
+    return hashlib.sha256(data).hexdigest()[:32]
 
 
-def _blocks(text: str, starts: Sequence[int], known: dict[int, str] | None = None) -> list[str]:
+class _Source:
+    """Normalised text and, where it is ASCII and was not changed by normalising, the bytes it
+    was decoded from: a span's digest is then taken from those bytes in place (hashing every
+    block of a 30 MB head otherwise spends as long encoding the text as hashing it). The
+    digest of a span is the same either way: ASCII text is its own UTF-8."""
+
+    def __init__(self, text: str, data: bytes | None = None) -> None:
+        self.text = text
+        # Equal lengths mean every character is one byte and no "\r" or BOM was dropped.
+        self.view = memoryview(data) if data is not None and len(data) == len(text) else None
+
+    def digest(self, start: int, stop: int) -> str:
+        if self.view is not None:
+            return _digest(self.view[start:stop])
+        return _digest(self.text[start:stop].encode("utf-8", "surrogatepass"))
+
+
+def _blocks(source: _Source, starts: Sequence[int], known: dict[int, str] | None = None) -> list[str]:
     """Digest of each run of BLOCK stanzas (from a stanza's start to the next run's start, or
     the end of the text): what a later revision compares its text with. `known` gives the
     digests of runs already hashed (block number -> digest)."""
@@ -102,8 +124,8 @@ def _blocks(text: str, starts: Sequence[int], known: dict[int, str] | None = Non
     for j in range(total):
         digest = known.get(j)
         if digest is None:
-            stop = starts[(j + 1) * BLOCK] if (j + 1) * BLOCK < len(starts) else len(text)
-            digest = _digest(text[starts[j * BLOCK]:stop])
+            stop = starts[(j + 1) * BLOCK] if (j + 1) * BLOCK < len(starts) else len(source.text)
+            digest = source.digest(starts[j * BLOCK], stop)
         out.append(digest)
     return out
 
@@ -114,13 +136,13 @@ def _has_blocks(base: Snapshot) -> bool:
     return layout is not None and len(layout.blocks) == -(-len(layout.starts) // BLOCK)
 
 
-def _layout(text: str, header: str, stanzas: list[_obo.Stanza]) -> Layout:
+def _layout(source: _Source, header: str, stanzas: list[_obo.Stanza]) -> Layout:
     starts = [s.offset for s in stanzas]
     return Layout(starts, [s.line for s in stanzas], [s.kind == "Term" for s in stanzas],
-                  _blocks(text, starts), len(text), _digest(header))
+                  _blocks(source, starts), len(source.text), source.digest(0, len(header)))
 
 
-def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapshot:
+def _compared(source: _Source, path: str, blob: str | None, base: Snapshot) -> Snapshot:
     """The head as runs of base stanzas it repeats, plus the stanzas that differ.
 
     `text` is normalised. At each run of BLOCK base stanzas the head's text at the same
@@ -130,6 +152,7 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
     with a base stanza's digest is copied, any other is parsed. Equal to a full parse by
     construction (and by the property test); the base's own text is never read.
     """
+    text = source.text
     layout = base.layout
     assert layout is not None
     starts, count, blocks = layout.starts, len(layout.starts), layout.blocks
@@ -150,11 +173,12 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
             after = min(k + BLOCK, count)
             stop = at + (starts[after] if after < count else layout.size) - starts[k]
             if stop <= size and (stop == size or _obo.is_stanza_line(text, stop)) and \
-                    _digest(text[at:stop]) == blocks[k // BLOCK]:
+                    source.digest(at, stop) == blocks[k // BLOCK]:
                 segments.append(("copy", k, after - k, at - starts[k], line - layout.lines[k]))
                 if head_k % BLOCK == 0 and (after - k == BLOCK or stop == size):
                     same_blocks[head_k // BLOCK] = blocks[k // BLOCK]  # the same text, hashed
-                line += text.count("\n", at, stop)
+                # The run is the base's text, so its lines are the base's.
+                line += layout.lines[after] - layout.lines[k] if after < count else text.count("\n", at, stop)
                 head_k += after - k
                 at, k = stop, after
                 continue
@@ -185,7 +209,8 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
         at = stop
     parsed = _obo.parse_stanzas([s for _, s in fresh], path)
     # After the stanzas, as a full parse does, so the same error is reported first.
-    header = base.header if _digest(header_text) == layout.header else \
+    header_digest = source.digest(0, first)
+    header = base.header if header_digest == layout.header else \
         _obo.header_pairs(header_text.removesuffix("\n"), path)
     terms = iter(parsed)
     for place, stanza in fresh:
@@ -193,6 +218,6 @@ def _compared(text: str, path: str, blob: str | None, base: Snapshot) -> Snapsho
         segments[place] = ("new", stanza.offset, stanza.line, term)
     snap = derived(path, blob, header, base, segments)
     assert snap.layout is not None
-    snap.layout = snap.layout._replace(blocks=_blocks(text, snap.layout.starts, same_blocks), size=size,
-                                       header=_digest(header_text))
+    snap.layout = snap.layout._replace(blocks=_blocks(source, snap.layout.starts, same_blocks), size=size,
+                                       header=header_digest)
     return snap

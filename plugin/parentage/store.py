@@ -23,7 +23,7 @@ from parentage.errors import ParentageError
 
 # Bump when the layout of any stored value changes (a Term field, a model array...), so an
 # old cache is never read with a new layout even within one release.
-LAYOUT = 6
+LAYOUT = 7
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS entry (

@@ -55,7 +55,7 @@ class Workspace:
         if snap is None:
             data = version.data if version.data is not None else self.repo.blob_bytes(version.blob)
             text = decode(data, path)
-            snap = parse_ontology_text(text, path, version.blob, base)
+            snap = parse_ontology_text(text, path, version.blob, base, data=data)
             self._put(f"{version.blob}:{path}", snap)
             self._snapshots[(version.blob, path)] = snap
         return snap
