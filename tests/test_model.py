@@ -281,8 +281,8 @@ def test_stored_model_predicts_without_sklearn(tmp_path, subset: tuple) -> None:
     code = f"""
 import sys
 from parentage.store import Store
-from parentage.tiers.model import Model, NAMESPACE
-model = Model.from_bytes(Store({path!r}).get_bytes(NAMESPACE, {key!r}))
+from parentage.tiers.model import read_model
+model = read_model(Store({path!r}), {key!r})
 out = model.predict({{"X:1": "OC(=O)c1ccccc1"}})
 assert out["X:1"], out
 assert "sklearn" not in sys.modules, "sklearn imported at prediction time"

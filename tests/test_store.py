@@ -53,6 +53,46 @@ def test_bytes_round_trip(tmp_path: Path) -> None:
     again.close()
 
 
+def test_file_values_round_trip(tmp_path: Path) -> None:
+    store = Store(str(tmp_path / "store.sqlite"))
+    payload = bytes(range(256)) * 4000
+    store.put_file("model", "k", payload)
+    store.put_file("model", "k", payload[::-1])  # replaced whole, never half-written
+    assert bytes(store.get_file("model", "k") or b"") == payload[::-1]
+    assert store.get_file("model", "other") is None
+    assert Store(str(tmp_path / "store.sqlite"), version="another").get_file("model", "k") is None
+    assert [p.name for p in (tmp_path / "files").iterdir() if p.name.endswith(".part")] == []
+    memory = Store(None)  # no folder: kept in the in-memory database
+    memory.put_file("model", "k", payload)
+    assert memory.get_file("model", "k") == payload
+
+
+def test_model_file_round_trip_and_damage(tmp_path: Path) -> None:
+    from dataclasses import asdict
+
+    import numpy as np
+
+    from parentage.config import ModelSettings
+    from parentage.errors import ParentageError
+    from parentage.tiers.model import FORMAT, Model
+
+    arrays = {"w": np.arange(12, dtype=np.float16).reshape(3, 4), "ids": np.array([b"A:1", b"B:22"]),
+              "ptr": np.array([0, 5, 9], dtype=np.int64), "none": np.zeros((0, 3), dtype=np.float32)}
+    meta = {"format": FORMAT, "settings": asdict(ModelSettings()), "classes": ["C:1"], "revision": "r",
+            "ancestors": {"C:1": []}, "disjoint": []}
+    blob = Model(arrays, meta).to_bytes()
+    store = Store(str(tmp_path / "store.sqlite"))
+    store.put_file("model", "k", blob)
+    back = Model.from_bytes(store.get_file("model", "k") or b"")
+    for name, values in arrays.items():
+        assert back.arrays[name].dtype == values.dtype and np.array_equal(back.arrays[name], values)
+    assert back.revision == "r"
+    # A damaged or foreign file is one clear error, never a crash or a pickle load.
+    for damaged in (blob[: len(blob) // 2], b"not a model", blob.replace(b"<f2", b"|O8", 1)):
+        with pytest.raises(ParentageError, match="stored model is unreadable"):
+            Model.from_bytes(damaged)
+
+
 def test_no_pickle_in_the_file(tmp_path: Path) -> None:
     path = tmp_path / "store.sqlite"
     store = Store(str(path))
