@@ -2,8 +2,8 @@
 large values (stored models) as files that are mapped into memory when read.
 
 Keys are content addresses (git blob sha, canonical SMILES, settings hash), stamped with the
-tool version so a new release never reads an old layout. Values are JSON or raw bytes (for
-`.npz` arrays), never pickle: a CI cache can be restored from an untrusted branch.
+tool version so a new release never reads an old layout. Values are JSON or raw bytes (numeric
+arrays), never pickle: a CI cache can be restored from an untrusted branch.
 
 pre-commit runs hooks in parallel, so several processes may write at once: WAL mode, a busy
 timeout, and short transactions keep the file consistent.

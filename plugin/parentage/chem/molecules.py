@@ -24,6 +24,7 @@ import io
 import re
 import threading
 from collections.abc import Iterable, Iterator
+from functools import partial
 from typing import TYPE_CHECKING, Any, NamedTuple
 
 from parentage.config import Limits
@@ -274,21 +275,40 @@ def analyse_many(structures: Iterable[str], limits: Limits = DEFAULT_LIMITS, sto
         else:
             to_look_up.append(text)
     cached = store.get_many(NAMESPACE, (f"{kind}:{t}" for t in to_look_up)) if store else {}
-    fresh: dict[str, Any] = {}
-    for text in progress(to_look_up, desc="structures"):
+    todo = []
+    for text in to_look_up:
         row = cached.get(f"{kind}:{text}")
-        if row is not None:
-            facts = MolFacts.from_json(row)
-            problem = None if facts.error else _too_many(facts.heavy_atoms, limits)
-            out[text] = facts._replace(error=problem) if problem else facts
+        if row is None:
+            todo.append(text)
             continue
-        facts = analyse(text, kind, limits)
-        out[text] = facts
-        if not (facts.error and facts.error.startswith(_TOO_MANY)):
-            fresh[f"{kind}:{text}"] = facts.to_json()
+        facts = MolFacts.from_json(row)
+        problem = None if facts.error else _too_many(facts.heavy_atoms, limits)
+        out[text] = facts._replace(error=problem) if problem else facts
+    fresh: dict[str, Any] = {}
+    if todo:
+        from rdkit import Chem  # noqa: F401 - loaded here once, so every worker inherits it
+
+        from parentage.chem.bounded import bounded_map
+
+        read = partial(_facts_row, kind=kind, limits=limits)
+        for index, row, why in progress(bounded_map(read, todo, limits.parse_seconds),
+                                        total=len(todo), desc="structures"):
+            text = todo[index]
+            if row is None:
+                # Not stored: another machine, or a larger limit, may read it in time.
+                hint = " (limits.parse_seconds)" if why and why.startswith("reading it took") else ""
+                out[text] = MolFacts(error=f"structure cannot be read: {why}{hint}")
+                continue
+            facts = out[text] = MolFacts.from_json(row)
+            if not (facts.error and facts.error.startswith(_TOO_MANY)):
+                fresh[f"{kind}:{text}"] = row
     if store is not None and fresh:
         store.put_many(NAMESPACE, fresh)
     return out
+
+
+def _facts_row(text: str, kind: str, limits: Limits) -> dict[str, Any]:
+    return analyse(text, kind, limits).to_json()
 
 
 # -- formulas as written ----------------------------------------------------------------------
