@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Sequence
+from itertools import compress
 from typing import Any
 
 from parentage import _obo
@@ -196,7 +197,7 @@ def _compared(source: _Source, path: str, blob: str | None, base: Snapshot) -> S
                 n = base.terms.index.get(stanza.id) if stanza.id else None
                 if n is not None and digests[n] == stanza.digest:
                     if not stanza_of_term:
-                        stanza_of_term = [j for j, is_term in enumerate(layout.terms) if is_term]
+                        stanza_of_term = list(compress(range(count), layout.terms))
                     same = stanza_of_term[n]
         if same is not None:
             segments.append(("copy", same, 1, at - starts[same], line - layout.lines[same]))
