@@ -390,7 +390,6 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
     doubted = yt & (probs[judged] <= model.arrays["low"])
     n_doubted, members = doubted.sum(0), yt.sum(0)
     tp_t = (yt & yp & ~doubted).sum(0).astype(float)
-    fp_t = (~yt & yp).sum(0).astype(float)
     fn_t = (yt & ~yp & ~doubted).sum(0).astype(float)
     figures = {}
     for j, cls in enumerate(model.classes):
@@ -399,7 +398,7 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
         f1 = 2 * p * r / (p + r) if p + r else 0.0
         trust = f1
         if 0 < n_doubted[j] <= members[j] / 2:
-            trust = 2 * tp_t[j] / max(2 * tp_t[j] + fp_t[j] + fn_t[j], 1.0)
+            trust = 2 * tp_t[j] / max(2 * tp_t[j] + fp[j] + fn_t[j], 1.0)
         figures[cls] = ClassFigures(round(p, 4), round(r, 4), round(f1, 4), int(y[:, j].sum()),
                                     round(float(max(trust, f1)), 4))
     micro_p = tp.sum() / max(tp.sum() + fp.sum(), 1)
