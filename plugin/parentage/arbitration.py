@@ -3,9 +3,11 @@
 The rules, in order of authority:
 1. A rule verdict outranks a model verdict. A necessary or defining rule of an asserted class
    (or any of its ancestors) that the structure fails is `rule-violated`.
-2. A model verdict counts only for classes whose cross-validated F1 reaches `model.min_f1`.
-3. `parent-unsupported`: an asserted parent that the trusted model is confidently against and
-   that no rule supports (a rule that opposes is already `rule-violated`).
+2. A model verdict counts only for classes whose cross-validated trust F1 reaches
+   `model.min_f1` (the caller passes the figures; see `ClassFigures.trust_f1`).
+3. `parent-unsupported`: an asserted parent that no rule supports and that the trusted model is
+   confidently against, itself or through an ancestor that no rule supports (a member of a
+   class is a member of its ancestors; a rule that opposes is already `rule-violated`).
 4. `tiers-disagree`: a rule supports a class the trusted model is confidently against (the
    rule wins; the note says so). Where a rule says no, it has already decided.
 5. `parent-suggested`: the most specific classes that a sufficient/defining rule or the
@@ -62,6 +64,15 @@ def _sufficient(verdict: Verdict) -> bool:
     return verdict.evidence.get("kind") in ("sufficient", "defining") or "implied_by" in verdict.evidence
 
 
+def _against_ancestor(ontology: Ontology, cls: str, rules: Mapping[str, Verdict],
+                      model: Mapping[str, Verdict]) -> Verdict | None:
+    """The trusted model's most confident opposition to an ancestor of `cls` that no rule
+    supports: a member of a class is a member of its ancestors."""
+    against = [v for a, v in model.items() if v.opinion == "opposes" and a in ontology.ancestors(cls)
+               and (a not in rules or rules[a].opinion != "supports")]
+    return min(against, key=lambda v: (v.evidence.get("probability", 0.0), v.cls)) if against else None
+
+
 def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
               model_verdicts: Iterable[Verdict], class_f1: Mapping[str, float],
               min_f1: float, max_suggestions: int) -> list[Finding]:
@@ -92,14 +103,23 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
                     _evidence(rule=rule, model=model.get(cls)))
     for cls in sorted(asserted):
         rule, guess = rules.get(cls), model.get(cls)
-        if guess is None or guess.opinion != "opposes":
+        if rule is not None:
             continue
-        if rule is None:
+        if guess is None or guess.opinion != "opposes":
+            guess = _against_ancestor(ontology, cls, rules, model)
+            if guess is None:
+                continue
             finding("parent-unsupported", (cls,), ("model",),
                     f"is filed under {_name(ontology, cls)}, but no rule supports it and the "
-                    f"model is confident it does not belong "
+                    f"model is confident it does not belong to its ancestor {_name(ontology, guess.cls)} "
                     f"(p={guess.evidence.get('probability', 0):.2f})",
                     _evidence(model=guess))
+            continue
+        finding("parent-unsupported", (cls,), ("model",),
+                f"is filed under {_name(ontology, cls)}, but no rule supports it and the "
+                f"model is confident it does not belong "
+                f"(p={guess.evidence.get('probability', 0):.2f})",
+                _evidence(model=guess))
     for cls in sorted(set(rules) & set(model)):
         rule, guess = rules[cls], model[cls]
         # Only a rule that says yes against a model that says no is worth a note: where a
