@@ -6,9 +6,14 @@ import os
 import time
 from dataclasses import replace
 
+import fgbench
+import numpy as np
+
+from parentage.chem import bounded
 from parentage.chem.bounded import bounded_map
+from parentage.chem.fingerprints import fingerprint_bits
 from parentage.chem.molecules import analyse_many
-from parentage.config import Limits
+from parentage.config import Limits, ModelSettings
 from parentage.store import Store
 
 
@@ -58,3 +63,17 @@ def test_a_structure_out_of_time_is_unreadable_and_not_stored(tmp_path) -> None:
     # Not stored: with the default limit the same store reads it.
     again = analyse_many([smiles], Limits(), store)[smiles]
     assert again.error is None and again.formula == "C27H46O"  # cholesterol, C27H46O (CRC Handbook)
+
+
+def test_fingerprints_of_a_large_batch_equal_those_read_in_process() -> None:
+    # Molecules shipped with RDKit (NCI first_5K.smi, via tests/fgbench.py), with one
+    # unreadable text among them: the forked workers give what one process gives.
+    smiles = [m.smiles for m in fgbench.molecules()[:150]] + ["C1CC"]
+    settings = ModelSettings()
+    parallel = fingerprint_bits(smiles, settings)
+    assert len(smiles) >= bounded.SPLIT_AT
+    one_by_one = [fingerprint_bits([s], settings)[0] for s in smiles]
+    assert parallel[-1] is None and one_by_one[-1] is None
+    for a, b in zip(parallel[:-1], one_by_one[:-1]):
+        assert a is not None and b is not None and a.dtype == b.dtype == np.uint32
+        assert np.array_equal(a, b)

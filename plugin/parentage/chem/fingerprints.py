@@ -10,12 +10,14 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Callable, Iterable, Sequence
+from functools import partial
 from typing import Any
 
 import numpy as np
 from rdkit import Chem
 from rdkit.Chem import rdFingerprintGenerator as generators
 
+from parentage.chem import bounded
 from parentage.chem.molecules import captured_log, parse_smiles
 from parentage.config import Limits, ModelSettings
 from parentage.errors import ParentageError
@@ -55,16 +57,36 @@ def _bits_of(generator: Any, mol: Chem.Mol) -> Bits:
     return np.array(sorted(found), dtype=np.uint32)
 
 
-def fingerprint_bits(smiles: Iterable[str], settings: ModelSettings,
-                     limits: Limits = DEFAULT_LIMITS) -> list[Bits | None]:
-    """Set bits of each structure; None where the SMILES is unreadable or over the limits."""
+def fingerprint_bits(smiles: Sequence[str], settings: ModelSettings, limits: Limits = DEFAULT_LIMITS,
+                     wrap: Callable[[Iterable[Any]], Iterable[Any]] | None = None) -> list[Bits | None]:
+    """Set bits of each structure; None where the SMILES is unreadable, over the limits, or
+    out of time (`limits.parse_seconds`). A large batch is read by one forked worker per core,
+    each structure bounded in time (see chem/bounded.py); a small one (a review's handful,
+    already read within the bound by the structure tier) in this process. `wrap` may decorate
+    the progress through the batch (a progress bar)."""
     generator = _generator(settings)
-    out: list[Bits | None] = []
+    out: list[Bits | None] = [None] * len(smiles)
+    if len(smiles) >= bounded.SPLIT_AT:
+        _GENERATOR[0] = generator  # made before the fork, so each worker inherits it
+        read = partial(_bits_row, limits=limits)
+        results: Iterable[Any] = bounded.bounded_map(read, smiles, limits.parse_seconds)
+        for index, row, _why in (wrap(results) if wrap is not None else results):
+            out[index] = None if row is None else np.array(row, dtype=np.uint32)
+        return out
     with captured_log():
-        for text in smiles:
+        for index, text in enumerate(wrap(smiles) if wrap is not None else smiles):
             mol, error, _ = parse_smiles(text, limits)
-            out.append(None if mol is None or error else _bits_of(generator, mol))
+            out[index] = None if mol is None or error else _bits_of(generator, mol)
     return out
+
+
+_GENERATOR: list[Any] = [None]  # the generator a forked worker uses
+
+
+def _bits_row(text: str, limits: Limits) -> list[int] | None:
+    with captured_log():
+        mol, error, _ = parse_smiles(text, limits)
+        return None if mol is None or error else _bits_of(_GENERATOR[0], mol).tolist()
 
 
 def _key(smiles: str) -> str:
@@ -77,7 +99,7 @@ _UNREADABLE = b"\xff"  # an unreadable structure is remembered too, so it is not
 
 def cached_bits(smiles: Sequence[str], settings: ModelSettings, store: Store,
                 limits: Limits = DEFAULT_LIMITS,
-                wrap: Callable[[Iterable[str]], Iterable[str]] | None = None) -> list[Bits | None]:
+                wrap: Callable[[Iterable[Any]], Iterable[Any]] | None = None) -> list[Bits | None]:
     """`fingerprint_bits` through the store: each distinct SMILES is computed once.
 
     `wrap` may decorate the iteration over structures still to compute (a progress bar).
@@ -92,8 +114,7 @@ def cached_bits(smiles: Sequence[str], settings: ModelSettings, store: Store,
             known[text] = None if raw == _UNREADABLE else np.frombuffer(raw, dtype=np.uint32)
     missing = [s for s in distinct if s not in known]
     if missing:
-        todo: Iterable[str] = wrap(missing) if wrap is not None else missing
-        computed = fingerprint_bits(todo, settings, limits)
+        computed = fingerprint_bits(missing, settings, limits, wrap)
         known.update(zip(missing, computed))
         store.put_many_bytes(namespace, ((keys[s], _UNREADABLE if b is None else b.tobytes())
                                          for s, b in zip(missing, computed)))
