@@ -39,6 +39,7 @@ import numpy as np
 from rdkit import Chem, rdBase
 from rdkit.Chem import rdFMCS, rdMolDescriptors
 
+from parentage._collection import collector_paused
 from parentage.chem.molecules import captured_log, parse_smiles
 from parentage.config import Limits
 from parentage.errors import ParentageError
@@ -665,6 +666,11 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
     return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements)
 
 
+# Counts and their sums are whole numbers far below 2**24, exact in float32, whose matrix
+# products numpy hands to BLAS (integer products run in a plain loop, several times slower).
+_COUNT = np.float32
+
+
 class ScreenTable:
     """The screens of many patterns, checked together on one structure with numpy.
 
@@ -681,17 +687,20 @@ class ScreenTable:
                  if len({k // 2 for k in n[0]}) <= _MAX_NEED_ELEMENTS]
             b = [bond_needs.setdefault(n, len(bond_needs)) for n in pattern.screen.bond_needs]
             uses.append((a, b))
-        self.atom_matrix = np.zeros((len(_ATOM_KEYS), len(atom_needs)), dtype=np.int32)
-        self.atom_least = np.array([n for _, n in atom_needs], dtype=np.int32)
+        # Only the atom (bond) types some need counts get a column.
+        self.atom_column = {k: c for c, k in enumerate(sorted({k for keys, _ in atom_needs for k in keys}))}
+        self.atom_matrix = np.zeros((len(self.atom_column), len(atom_needs)), dtype=_COUNT)
+        self.atom_least = np.array([n for _, n in atom_needs], dtype=_COUNT)
         for (keys, _), col in atom_needs.items():
-            self.atom_matrix[sorted(keys), col] = 1
-        self.bond_matrix = np.zeros((max(_BOND_KEYS) + 1, len(bond_needs)), dtype=np.int32)
-        self.bond_least = np.array([n for _, n in bond_needs], dtype=np.int32)
+            self.atom_matrix[[self.atom_column[k] for k in keys], col] = 1
+        self.bond_column = {k: c for c, k in enumerate(sorted({k for keys, _ in bond_needs for k in keys}))}
+        self.bond_matrix = np.zeros((len(self.bond_column), len(bond_needs)), dtype=_COUNT)
+        self.bond_least = np.array([n for _, n in bond_needs], dtype=_COUNT)
         for (keys, _), col in bond_needs.items():
-            self.bond_matrix[sorted(keys), col] = 1
+            self.bond_matrix[[self.bond_column[k] for k in keys], col] = 1
         # Which needs each pattern has: a (needs x patterns) 0/1 matrix.
-        self.atom_uses = np.zeros((len(atom_needs), len(patterns)), dtype=np.int32)
-        self.bond_uses = np.zeros((len(bond_needs), len(patterns)), dtype=np.int32)
+        self.atom_uses = np.zeros((len(atom_needs), len(patterns)), dtype=_COUNT)
+        self.bond_uses = np.zeros((len(bond_needs), len(patterns)), dtype=_COUNT)
         for p, (a, b) in enumerate(uses):
             self.atom_uses[a, p] = 1
             self.bond_uses[b, p] = 1
@@ -710,18 +719,30 @@ class ScreenTable:
 
     def passing(self, many: Sequence[Facts]) -> np.ndarray:
         """(structures x patterns) booleans: False only where the pattern cannot match."""
-        atoms = np.zeros((len(many), self.atom_matrix.shape[0]), dtype=np.int32)
-        bonds = np.zeros((len(many), self.bond_matrix.shape[0]), dtype=np.int32)
-        for row, facts in enumerate(many):
-            for key, count in facts.atom_counts.items():
-                atoms[row, key] = count
-            for key, count in facts.bond_counts.items():
-                bonds[row, key] = count
-        atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(np.int32)
-        bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(np.int32)
+        atoms = _counts([f.atom_counts for f in many], self.atom_column)
+        bonds = _counts([f.bond_counts for f in many], self.bond_column)
+        atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(_COUNT)
+        bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(_COUNT)
         failed = atom_short @ self.atom_uses + bond_short @ self.bond_uses
         sizes = np.array([f.atoms for f in many], dtype=np.int32)
         return (failed == 0) & (self.sizes[None, :] <= sizes[:, None])
+
+
+def _counts(rows: Sequence[Mapping[int, int]], column_of: Mapping[int, int]) -> np.ndarray:
+    """A (rows x columns) matrix of the counts whose keys have a column; others are dropped."""
+    where: list[int] = []
+    columns: list[int] = []
+    counts: list[int] = []
+    for row, found in enumerate(rows):
+        for key, count in found.items():
+            column = column_of.get(key)
+            if column is not None:
+                where.append(row)
+                columns.append(column)
+                counts.append(count)
+    out = np.zeros((len(rows), len(column_of)), dtype=_COUNT)
+    out[where, columns] = counts
+    return out
 
 
 def passes(pattern: Pattern, mol: Chem.Mol) -> bool:
@@ -967,9 +988,11 @@ def _worker(todo: list[int], items: Sequence[str | Chem.Mol], search: _Search,
     # bad structure captures its own lines.
     rdBase.LogToPythonStderr()
     sys.stderr = _Quiet()  # type: ignore[assignment]
+    # Rows hold no cycles; not checking for them saves a third of the encoding.
+    encode = json.JSONEncoder(check_circular=False, separators=(",", ":")).encode
     _run(todo, items, search, wanted, limits, progress,
-         lambda rows: conn.send_bytes(json.dumps(rows).encode()), True, elements)
-    conn.send_bytes(json.dumps([None]).encode())
+         lambda rows: conn.send_bytes(encode(rows).encode()), True, elements)
+    conn.send_bytes(encode([None]).encode())
     conn.close()
 
 
@@ -1081,15 +1104,17 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
     count = max(1, min(workers or default_workers(len(todo)), len(todo)))
-    size = -(-len(todo) // count)
     job = (items, search, wanted, limits, evidence, elements)
-    lanes = [_Lane(ctx, todo[k * size:(k + 1) * size], job, bound) for k in range(count)]
+    # Every count-th structure to each worker: neighbours in a list are often alike (one
+    # source after another), so contiguous halves can leave one worker with the heavy end.
+    lanes = [_Lane(ctx, todo[k::count], job, bound) for k in range(count)]
     try:
-        while not all(lane.done for lane in lanes):
-            handles = [h for lane in lanes for h in lane.handles()]
-            ready = wait(handles, timeout=min(0.05, bound / 4))
-            for lane in lanes:
-                lane.step(ready, results)
+        with collector_paused():  # an Outcome per structure, decoded as rows arrive
+            while not all(lane.done for lane in lanes):
+                handles = [h for lane in lanes for h in lane.handles()]
+                ready = wait(handles, timeout=min(0.05, bound / 4))
+                for lane in lanes:
+                    lane.step(ready, results)
     finally:
         for lane in lanes:
             if not lane.done:
