@@ -563,9 +563,10 @@ class Facts(NamedTuple):
 
     atoms: int
     atom_counts: dict[int, int]  # 2 * atomic number + aromatic -> atoms (an upper bound)
-    bond_counts: dict[int, int]  # bond type -> bonds (an upper bound)
+    bond_counts: dict[int, int]  # bond type -> bonds (an upper bound); others: at most `bonds`
     charge: int
     elements: frozenset[str]
+    bonds: int  # bonds in all
 
 
 _FORMULA_PART = re.compile(r"([A-Z][a-z]?|\*)(\d*)")
@@ -663,7 +664,7 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
         if aromatic:
             keys[2 * z + 1] = min(n, atoms)
     total = mol.GetNumBonds()
-    bonds = dict.fromkeys(_BOND_KEYS, total)
+    bonds: dict[int, int] = {}
     from_text = _text_bonds(text) if text is not None else None
     for kind in bond_types:
         if from_text is not None and kind in from_text:
@@ -672,7 +673,7 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
             bonds[kind] = len(mol.GetSubstructMatches(_BOND_QUERIES[kind], uniquify=True,
                                                       maxMatches=total))
     elements = frozenset(_SYMBOLS[z] for z, n in counts.items() if n) if exact else frozenset()
-    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements)
+    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements, total)
 
 
 # Counts and their sums are whole numbers far below 2**24, exact in float32, whose matrix
@@ -729,7 +730,7 @@ class ScreenTable:
     def passing(self, many: Sequence[Facts]) -> np.ndarray:
         """(structures x patterns) booleans: False only where the pattern cannot match."""
         atoms = _counts([f.atom_counts for f in many], self.atom_column)
-        bonds = _counts([f.bond_counts for f in many], self.bond_column)
+        bonds = _counts([f.bond_counts for f in many], self.bond_column, [f.bonds for f in many])
         atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(_COUNT)
         bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(_COUNT)
         failed = atom_short @ self.atom_uses + bond_short @ self.bond_uses
@@ -737,8 +738,10 @@ class ScreenTable:
         return (failed == 0) & (self.sizes[None, :] <= sizes[:, None])
 
 
-def _counts(rows: Sequence[Mapping[int, int]], column_of: Mapping[int, int]) -> np.ndarray:
-    """A (rows x columns) matrix of the counts whose keys have a column; others are dropped."""
+def _counts(rows: Sequence[Mapping[int, int]], column_of: Mapping[int, int],
+            otherwise: Sequence[int] | None = None) -> np.ndarray:
+    """A (rows x columns) matrix of the counts whose keys have a column (others are dropped);
+    a column a row has no count for holds 0, or that row's value in `otherwise`."""
     where: list[int] = []
     columns: list[int] = []
     counts: list[int] = []
@@ -750,6 +753,8 @@ def _counts(rows: Sequence[Mapping[int, int]], column_of: Mapping[int, int]) -> 
                 columns.append(column)
                 counts.append(count)
     out = np.zeros((len(rows), len(column_of)), dtype=_COUNT)
+    if otherwise is not None:
+        out[:] = np.asarray(otherwise, dtype=_COUNT)[:, None]
     out[where, columns] = counts
     return out
 

@@ -265,7 +265,7 @@ class RuleSet:
         self._kinds = {cls: tuple(tuple(i for i in indices if self.rules[i].kind in kinds)
                                   for kinds in (_NECESSARY, _SUFFICIENT, ("necessary",)))
                        for cls, indices in self.by_class.items()}
-        self._cache: dict[tuple[Limits, str], Outcome] = {}
+        self._cache: dict[Limits, dict[str, Outcome]] = {}  # limits -> SMILES text -> outcome
         self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
         self._elements = any(r.has_elements or r.lacks_elements for r in self.rules)
         self._charges = any(r.net_charge for r in self.rules)
@@ -298,13 +298,19 @@ class RuleSet:
         results: list[Outcome | None] = [None] * len(structures)
         todo: list[int] = []
         need: list[frozenset[int]] = []
-        pattern_sets: dict[frozenset[int], frozenset[int]] = {}  # most terms share their rules
+        # Most terms share one set of rules (the same object): its patterns are found once.
+        by_object: dict[int, tuple[Any, frozenset[int]]] = {}
+        by_content: dict[frozenset[int], frozenset[int]] = {}
+        cache = self._cache.setdefault(limits, {})
         for i, (item, rules) in enumerate(zip(structures, wanted_rules)):
-            key = frozenset(rules)
-            wanted = pattern_sets.get(key)
-            if wanted is None:
-                wanted = pattern_sets[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
-            hit = self._cache.get((limits, item)) if isinstance(item, str) else None
+            known = by_object.get(id(rules))
+            if known is None or known[0] is not rules:
+                key = frozenset(rules)
+                if key not in by_content:
+                    by_content[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
+                known = by_object[id(rules)] = (rules, by_content[key])
+            wanted = known[1]
+            hit = cache.get(item) if isinstance(item, str) else None
             if hit is not None and evidence and not hit.evidence and hit.error is None:
                 hit = None  # found without atoms: search again for them
             missing = wanted - hit.checked if hit is not None else wanted
@@ -314,20 +320,21 @@ class RuleSet:
                 todo.append(i)
                 need.append(missing)
         if todo:
-            if len(self._cache) > _CACHE_LIMIT:
+            if sum(len(kept) for kept in self._cache.values()) > _CACHE_LIMIT:
                 self._cache.clear()
+                cache = self._cache.setdefault(limits, {})
             fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits, self.workers,
                                evidence, self._elements)
             for i, outcome in zip(todo, fresh):
                 item = structures[i]
-                old = self._cache.get((limits, item)) if isinstance(item, str) else None
+                old = cache.get(item) if isinstance(item, str) else None
                 if old is not None and outcome.error is None and old.evidence >= outcome.evidence:
                     outcome = outcome._replace(hits=old.hits | outcome.hits,
                                                matches={**old.matches, **outcome.matches},
                                                checked=old.checked | outcome.checked,
                                                evidence=old.evidence and outcome.evidence)
                 if isinstance(item, str):
-                    self._cache[(limits, item)] = outcome
+                    cache[item] = outcome
                 results[i] = outcome
         return [r for r in results if r is not None]
 
