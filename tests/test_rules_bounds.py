@@ -110,6 +110,26 @@ def test_worker_reads_as_the_careful_parse(smiles: str) -> None:
     assert (0 in outcome.hits) == (mol is not None)
 
 
+@pytest.mark.parametrize("smiles", [
+    pytest.param("[H]OC", id="hydroxyl-hydrogen-written"),
+    pytest.param("C([H])([H])([H])O", id="methyl-hydrogens-written"),
+    pytest.param("[2H]OC", id="deuterium-kept-as-an-atom"),
+    pytest.param("[OH]C", id="hydrogen-count-not-an-atom"),
+])
+def test_hydrogen_atoms_are_read_as_rdkit_reads_them(smiles: str) -> None:
+    # RDKit's MolFromSmiles (the reading of the reference matcher) removes hydrogens written as
+    # atoms, bar isotopes, and so changes degrees; both ways a worker reads a text (one call
+    # for a short text, the careful parse for one longer than limits.max_atoms characters)
+    # must match as it does.
+    patterns = [compile_smarts("[O;D1]"), compile_smarts("[C;D1]"), compile_smarts("[O;D2]")]
+    reference = Chem.MolFromSmiles(smiles)
+    expected = {i for i, p in enumerate(patterns) if reference.HasSubstructMatch(p.query)}
+    [quick] = match_many(patterns, [smiles], [[0, 1, 2]], Limits())
+    [careful] = match_many(patterns, [smiles], [[0, 1, 2]], Limits(max_atoms=len(smiles) - 1))
+    assert quick.error is None and careful.error is None
+    assert quick.hits == careful.hits == expected
+
+
 def test_many_structures_stay_bounded() -> None:
     # Hundreds of plain structures around the hostile one, over two worker processes: only
     # the hostile one runs into the bound; every other one gets its answer.

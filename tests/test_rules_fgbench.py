@@ -135,7 +135,7 @@ def test_screen_facts_bound_the_true_counts(subset: list) -> None:
                 assert facts.atom_counts.get(key, 0) >= count, (mol.smiles, key, quick is None)
             for kind in (2, 3):
                 true = sum(1 for b in rd.GetBonds() if int(b.GetBondType()) == kind)
-                assert facts.bond_counts[kind] >= true, (mol.smiles, kind)
+                assert facts.bond_counts.get(kind, facts.bonds) >= true, (mol.smiles, kind)
             assert facts.charge == Chem.GetFormalCharge(rd)
             assert facts.elements == (elements if quick is None else frozenset())
 

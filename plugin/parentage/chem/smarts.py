@@ -22,7 +22,9 @@ and a bounded maximum common substructure.
 """
 from __future__ import annotations
 
+import functools
 import gc
+import heapq
 import json
 import multiprocessing
 import os
@@ -37,6 +39,7 @@ import numpy as np
 from rdkit import Chem, rdBase
 from rdkit.Chem import rdFMCS, rdMolDescriptors
 
+from parentage._collection import collector_paused
 from parentage.chem.molecules import captured_log, parse_smiles
 from parentage.config import Limits
 from parentage.errors import ParentageError
@@ -284,6 +287,233 @@ def _useful_skeleton(query: Chem.Mol) -> str | None:
     return text
 
 
+# -- what one pattern implies of another -----------------------------------------------------
+#
+# When every match of pattern P is also a match of Q (P implies Q), a structure that Q does not
+# match cannot match P either, so P is not searched. The proof here is deliberately narrow and
+# reads the queries as RDKit writes them back (explicit `&`, `;` and `,`): Q's atoms and bonds
+# are P's first atoms and bonds in the same order, and each of Q's atoms (bonds) is implied by
+# P's atom (bond) of the same index; a match of P, read through the same atom indices, is then
+# a match of Q. An atom query implies another when each conjunct of the other is one of its
+# own, or fixes only atom types that it already restricts the atom to, or is a recursion that
+# one of its own recursions implies (the same proof, rooted at the same atom), or is a negated
+# recursion whose root can never be this atom. Anything else is not proved, which only means a
+# search that could have been skipped.
+
+_MAX_IMPLIED = 512  # patterns beyond which implications are not looked for (pairs grow squared)
+
+
+def _split_top(text: str, sep: str) -> list[str] | None:
+    """`text` split at each `sep` outside brackets and parentheses; None if they do not balance."""
+    parts: list[str] = []
+    depth, start = 0, 0
+    for pos, char in enumerate(text):
+        if char in "([":
+            depth += 1
+        elif char in ")]":
+            depth -= 1
+        elif depth == 0 and char == sep:
+            parts.append(text[start:pos])
+            start = pos + 1
+    parts.append(text[start:])
+    return parts if depth == 0 else None
+
+
+def _conjuncts(smarts: str) -> tuple[str, ...] | None:
+    """An atom's (or bond's) SMARTS as the parts that must all hold: the `;` groups, each
+    split further at `&` unless it holds `,` alternatives (then it stays whole)."""
+    inner = smarts[1:-1] if smarts.startswith("[") and smarts.endswith("]") else smarts
+    groups = _split_top(inner, ";")
+    if groups is None:
+        return None
+    out: list[str] = []
+    for group in groups:
+        alternatives = _split_top(group, ",")
+        if alternatives is None:
+            return None
+        parts = _split_top(group, "&") if len(alternatives) == 1 else [group]
+        if parts is None:
+            return None
+        out += parts
+    return tuple(out)
+
+
+@functools.lru_cache(maxsize=4096)
+def _conjunct_atom_types(conjunct: str) -> tuple[frozenset[int], bool]:
+    """(atom-type keys, exact) of one conjunct standing alone."""
+    with captured_log():
+        query = Chem.MolFromSmarts(f"[*;{conjunct}]")
+    if query is None or query.GetNumAtoms() != 1:
+        return _ATOM_KEYS, False
+    return _atom_set(_describe_tree(query.GetAtomWithIdx(0).DescribeQuery()))
+
+
+@functools.lru_cache(maxsize=1024)
+def _conjunct_bond_types(conjunct: str) -> tuple[frozenset[int], bool]:
+    """(bond-type keys, exact) of one bond conjunct standing alone ("" is single or aromatic)."""
+    with captured_log():
+        query = Chem.MolFromSmarts(f"*{conjunct}*")
+    if query is None or query.GetNumBonds() != 1:
+        return _BOND_KEYS, False
+    return _bond_set(_describe_tree(query.GetBondWithIdx(0).DescribeQuery()))
+
+
+class _Part(NamedTuple):
+    smarts: str  # as RDKit writes it back
+    conjuncts: tuple[str, ...] | None
+    keys: frozenset[int]  # atom (bond) types it can match: a superset
+
+
+class _Shape(NamedTuple):
+    atoms: tuple[_Part, ...]
+    bonds: dict[tuple[int, int], _Part]  # (lower, higher atom index) -> bond
+
+
+def _positive_recursion(conjunct: str) -> str | None:
+    return conjunct[2:-1] if conjunct.startswith("$(") and _is_recursion(conjunct) else None
+
+
+def _negated_recursion(conjunct: str) -> str | None:
+    return conjunct[3:-1] if conjunct.startswith("!$(") and _is_recursion(conjunct) else None
+
+
+@functools.lru_cache(maxsize=4096)
+def _shape(smarts: str, depth: int = 0) -> _Shape | None:
+    """The pattern's atoms and bonds as `_Part`s; None for what the proof leaves alone (a
+    pattern that does not compile, or with `.`, whose parts may share a component)."""
+    if "." in smarts:
+        return None
+    with captured_log():
+        query = Chem.MolFromSmarts(smarts)
+    if query is None or query.GetNumAtoms() == 0:
+        return None
+    atoms = []
+    for atom in query.GetAtoms():
+        text = atom.GetSmarts()
+        conjuncts = _conjuncts(text)
+        keys = (_atom_set(_describe_tree(atom.DescribeQuery()))[0] if atom.HasQuery()
+                else frozenset({2 * atom.GetAtomicNum() + int(atom.GetIsAromatic())}))
+        # A recursion every match must satisfy is rooted at this atom: its root's types bound it.
+        for conjunct in (conjuncts or ()) if depth < _MAX_RECURSION else ():
+            body = _positive_recursion(conjunct)
+            inner = _shape(body, depth + 1) if body is not None else None
+            if inner is not None:
+                keys &= inner.atoms[0].keys
+        atoms.append(_Part(text, conjuncts, keys))
+    bonds = {}
+    for bond in query.GetBonds():
+        text = bond.GetSmarts()  # type: ignore[call-arg]  # RDKit's stubs want an argument
+        keys = (_bond_set(_describe_tree(bond.DescribeQuery()))[0] if bond.HasQuery()
+                else frozenset({int(bond.GetBondType())}))
+        ends = sorted((bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()))
+        bonds[(ends[0], ends[1])] = _Part(text, _conjuncts(text), keys)
+    return _Shape(tuple(atoms), bonds)
+
+
+def _atom_implies(mine: _Part, other: _Part, depth: int) -> bool:
+    if mine.smarts == other.smarts:
+        return True
+    if mine.conjuncts is None or other.conjuncts is None:
+        return False
+    for conjunct in other.conjuncts:
+        if conjunct in mine.conjuncts:
+            continue
+        keys, exact = _conjunct_atom_types(conjunct)
+        if exact and mine.keys <= keys:
+            continue  # it only fixes the type, and this atom can only be of those types
+        if depth < _MAX_RECURSION:
+            body = _positive_recursion(conjunct)
+            if body is not None and any(
+                    _implies(own, body, depth + 1) for own in map(_positive_recursion, mine.conjuncts)
+                    if own is not None):
+                continue
+            body = _negated_recursion(conjunct)
+            if body is not None:
+                root = _shape(body, depth + 1)
+                if root is not None and not mine.keys & root.atoms[0].keys:
+                    continue  # the recursion's root can never be this atom
+                if any(_implies(body, own, depth + 1) for own in map(_negated_recursion, mine.conjuncts)
+                       if own is not None):
+                    continue  # not(own) implies not(body) when body implies own
+        return False
+    return True
+
+
+def _bond_implies(mine: _Part, other: _Part) -> bool:
+    if mine.smarts == other.smarts:
+        return True
+    if mine.conjuncts is None or other.conjuncts is None:
+        return False
+    for conjunct in other.conjuncts:
+        if conjunct in mine.conjuncts:
+            continue
+        keys, exact = _conjunct_bond_types(conjunct)
+        if not (exact and mine.keys <= keys):
+            return False
+    return True
+
+
+@functools.lru_cache(maxsize=65536)
+def _implies(smarts: str, other: str, depth: int = 0) -> bool:
+    """True only when every match of `smarts` is a match of `other` (see above)."""
+    mine, theirs = _shape(smarts, depth), _shape(other, depth)
+    if mine is None or theirs is None or len(theirs.atoms) > len(mine.atoms):
+        return False
+    if not all(_atom_implies(a, b, depth) for a, b in zip(mine.atoms, theirs.atoms)):
+        return False
+    return all(ends in mine.bonds and _bond_implies(mine.bonds[ends], bond)
+               for ends, bond in theirs.bonds.items())
+
+
+def implies(pattern: Pattern, other: Pattern) -> bool:
+    """True only when every structure `pattern` matches is matched by `other` too."""
+    return _implies(pattern.text, other.text)
+
+
+def search_order(patterns: Sequence[Pattern]) -> tuple[list[int], list[tuple[int, ...]]]:
+    """An order to search the patterns in, and for each pattern the ones searched before it
+    that it implies: when one of those does not match, neither does the pattern.
+
+    Patterns that others imply come first (ties in index order)."""
+    count = len(patterns)
+    implied: list[list[int]] = [[] for _ in range(count)]
+    if 1 < count <= _MAX_IMPLIED:
+        shapes = [_shape(p.text) for p in patterns]
+        for i, mine in enumerate(shapes):
+            if mine is None:
+                continue
+            # A cheap first look (skipping a pair only forgoes a skip): the proofs found in
+            # practice have the other pattern no longer and its first atom of types that
+            # include this one's.
+            implied[i] = [j for j, theirs in enumerate(shapes) if i != j and theirs is not None
+                          and len(theirs.atoms) <= len(mine.atoms)
+                          and mine.atoms[0].keys <= theirs.atoms[0].keys
+                          and implies(patterns[i], patterns[j])]
+    # Kahn's algorithm over "j before i when i implies j"; of two equivalent patterns the
+    # later one waits for the earlier.
+    waits = [[j for j in implied[i] if not (i in implied[j] and i < j)] for i in range(count)]
+    waiting_on = [len(w) for w in waits]
+    freed: list[list[int]] = [[] for _ in range(count)]
+    for i, w in enumerate(waits):
+        for j in w:
+            freed[j].append(i)
+    ready = [i for i in range(count) if not waiting_on[i]]
+    heapq.heapify(ready)
+    order: list[int] = []
+    while ready:
+        j = heapq.heappop(ready)
+        order.append(j)
+        for i in freed[j]:
+            waiting_on[i] -= 1
+            if not waiting_on[i]:
+                heapq.heappush(ready, i)
+    # A cycle of one-way proofs (each pattern then equivalent to the others) waits for nothing.
+    order += [i for i in range(count) if waiting_on[i]]
+    position = {p: k for k, p in enumerate(order)}
+    before = [tuple(j for j in implied[i] if position[j] < position[i]) for i in range(count)]
+    return order, before
+
+
 # -- patterns ---------------------------------------------------------------------------------
 
 class Pattern:
@@ -333,9 +563,10 @@ class Facts(NamedTuple):
 
     atoms: int
     atom_counts: dict[int, int]  # 2 * atomic number + aromatic -> atoms (an upper bound)
-    bond_counts: dict[int, int]  # bond type -> bonds (an upper bound)
+    bond_counts: dict[int, int]  # bond type -> bonds (an upper bound); others: at most `bonds`
     charge: int
     elements: frozenset[str]
+    bonds: int  # bonds in all
 
 
 _FORMULA_PART = re.compile(r"([A-Z][a-z]?|\*)(\d*)")
@@ -433,7 +664,7 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
         if aromatic:
             keys[2 * z + 1] = min(n, atoms)
     total = mol.GetNumBonds()
-    bonds = dict.fromkeys(_BOND_KEYS, total)
+    bonds: dict[int, int] = {}
     from_text = _text_bonds(text) if text is not None else None
     for kind in bond_types:
         if from_text is not None and kind in from_text:
@@ -442,7 +673,12 @@ def facts_of(mol: Chem.Mol, smiles: str | None = None, bond_types: Iterable[int]
             bonds[kind] = len(mol.GetSubstructMatches(_BOND_QUERIES[kind], uniquify=True,
                                                       maxMatches=total))
     elements = frozenset(_SYMBOLS[z] for z, n in counts.items() if n) if exact else frozenset()
-    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements)
+    return Facts(atoms, keys, bonds, Chem.GetFormalCharge(mol), elements, total)
+
+
+# Counts and their sums are whole numbers far below 2**24, exact in float32, whose matrix
+# products numpy hands to BLAS (integer products run in a plain loop, several times slower).
+_COUNT = np.float32
 
 
 class ScreenTable:
@@ -461,17 +697,20 @@ class ScreenTable:
                  if len({k // 2 for k in n[0]}) <= _MAX_NEED_ELEMENTS]
             b = [bond_needs.setdefault(n, len(bond_needs)) for n in pattern.screen.bond_needs]
             uses.append((a, b))
-        self.atom_matrix = np.zeros((len(_ATOM_KEYS), len(atom_needs)), dtype=np.int32)
-        self.atom_least = np.array([n for _, n in atom_needs], dtype=np.int32)
+        # Only the atom (bond) types some need counts get a column.
+        self.atom_column = {k: c for c, k in enumerate(sorted({k for keys, _ in atom_needs for k in keys}))}
+        self.atom_matrix = np.zeros((len(self.atom_column), len(atom_needs)), dtype=_COUNT)
+        self.atom_least = np.array([n for _, n in atom_needs], dtype=_COUNT)
         for (keys, _), col in atom_needs.items():
-            self.atom_matrix[sorted(keys), col] = 1
-        self.bond_matrix = np.zeros((max(_BOND_KEYS) + 1, len(bond_needs)), dtype=np.int32)
-        self.bond_least = np.array([n for _, n in bond_needs], dtype=np.int32)
+            self.atom_matrix[[self.atom_column[k] for k in keys], col] = 1
+        self.bond_column = {k: c for c, k in enumerate(sorted({k for keys, _ in bond_needs for k in keys}))}
+        self.bond_matrix = np.zeros((len(self.bond_column), len(bond_needs)), dtype=_COUNT)
+        self.bond_least = np.array([n for _, n in bond_needs], dtype=_COUNT)
         for (keys, _), col in bond_needs.items():
-            self.bond_matrix[sorted(keys), col] = 1
+            self.bond_matrix[[self.bond_column[k] for k in keys], col] = 1
         # Which needs each pattern has: a (needs x patterns) 0/1 matrix.
-        self.atom_uses = np.zeros((len(atom_needs), len(patterns)), dtype=np.int32)
-        self.bond_uses = np.zeros((len(bond_needs), len(patterns)), dtype=np.int32)
+        self.atom_uses = np.zeros((len(atom_needs), len(patterns)), dtype=_COUNT)
+        self.bond_uses = np.zeros((len(bond_needs), len(patterns)), dtype=_COUNT)
         for p, (a, b) in enumerate(uses):
             self.atom_uses[a, p] = 1
             self.bond_uses[b, p] = 1
@@ -490,18 +729,34 @@ class ScreenTable:
 
     def passing(self, many: Sequence[Facts]) -> np.ndarray:
         """(structures x patterns) booleans: False only where the pattern cannot match."""
-        atoms = np.zeros((len(many), self.atom_matrix.shape[0]), dtype=np.int32)
-        bonds = np.zeros((len(many), self.bond_matrix.shape[0]), dtype=np.int32)
-        for row, facts in enumerate(many):
-            for key, count in facts.atom_counts.items():
-                atoms[row, key] = count
-            for key, count in facts.bond_counts.items():
-                bonds[row, key] = count
-        atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(np.int32)
-        bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(np.int32)
+        atoms = _counts([f.atom_counts for f in many], self.atom_column)
+        bonds = _counts([f.bond_counts for f in many], self.bond_column, [f.bonds for f in many])
+        atom_short = (atoms @ self.atom_matrix < self.atom_least).astype(_COUNT)
+        bond_short = (bonds @ self.bond_matrix < self.bond_least).astype(_COUNT)
         failed = atom_short @ self.atom_uses + bond_short @ self.bond_uses
         sizes = np.array([f.atoms for f in many], dtype=np.int32)
         return (failed == 0) & (self.sizes[None, :] <= sizes[:, None])
+
+
+def _counts(rows: Sequence[Mapping[int, int]], column_of: Mapping[int, int],
+            otherwise: Sequence[int] | None = None) -> np.ndarray:
+    """A (rows x columns) matrix of the counts whose keys have a column (others are dropped);
+    a column a row has no count for holds 0, or that row's value in `otherwise`."""
+    where: list[int] = []
+    columns: list[int] = []
+    counts: list[int] = []
+    for row, found in enumerate(rows):
+        for key, count in found.items():
+            column = column_of.get(key)
+            if column is not None:
+                where.append(row)
+                columns.append(column)
+                counts.append(count)
+    out = np.zeros((len(rows), len(column_of)), dtype=_COUNT)
+    if otherwise is not None:
+        out[:] = np.asarray(otherwise, dtype=_COUNT)[:, None]
+    out[where, columns] = counts
+    return out
 
 
 def passes(pattern: Pattern, mol: Chem.Mol) -> bool:
@@ -525,24 +780,51 @@ def find(pattern: Pattern, mol: Chem.Mol, limits: Limits = DEFAULT_LIMITS,
     return tuple(tuple(m) for m in mol.GetSubstructMatches(pattern.query, _params(limits)))
 
 
+# A hydrogen written as an atom ("[H]", "[2H]", "[H+]"; not He, Hf, Hg, Ho, Hs): RDKit's
+# MolFromSmiles removes such atoms (bar a few it must keep), which changes degrees (D) and
+# explicit connections (X) that patterns may ask about.
+_HYDROGEN_ATOM = re.compile(r"\[\d*H(?![a-z])")
+
+
 def read_structure(item: str | Chem.Mol, limits: Limits) -> tuple[Chem.Mol | None, str | None]:
+    """The structure as patterns are matched against it: RDKit's MolFromSmiles molecule (the
+    reference), read carefully first for the size limits and a message when it fails."""
     if isinstance(item, Chem.Mol):
         return item, None
     mol, error, _log = parse_smiles(item, limits)
+    if mol is not None and _HYDROGEN_ATOM.search(item):
+        with captured_log():
+            plain = Chem.MolFromSmiles(item)
+        if plain is not None:  # the careful parse keeps hydrogen atoms; MolFromSmiles does not
+            mol = plain
     return mol, error
 
 
 def _read_quickly(item: str | Chem.Mol, limits: Limits) -> tuple[Chem.Mol | None, str | None]:
-    """`read_structure` with one RDKit call for the common case, in a worker whose RDKit log
-    goes nowhere. A text no longer than `limits.max_atoms` characters cannot hold more heavy
-    atoms than that (each takes at least one character), so no count is needed first; any
-    text that fails, or may be over a limit, takes the careful path for its message."""
+    """`read_structure` with the fewest RDKit calls for the common case, in a worker whose
+    RDKit log goes nowhere. A text no longer than `limits.max_atoms` characters cannot hold
+    more heavy atoms than that (each takes at least one character), so no count is needed
+    first; any text that fails, or may be over a limit, takes the careful path for its message.
+
+    Without hydrogen atoms in the text, MolFromSmiles is a parse and a sanitisation (the
+    careful parse's own two calls) and then a perception of stereochemistry, which only
+    chirality-aware matching would read (ours is not: `_params`); it is left out.
+    """
     if isinstance(item, Chem.Mol):
         return item, None
     if item.strip() and len(item) <= min(limits.max_atoms, limits.max_structure_chars):
-        mol = Chem.MolFromSmiles(item)
-        if mol is not None:
-            return mol, None
+        if _HYDROGEN_ATOM.search(item) is not None:
+            mol = Chem.MolFromSmiles(item)
+            if mol is not None:
+                return mol, None
+        else:
+            mol = Chem.MolFromSmiles(item, sanitize=False)
+            if mol is not None:
+                try:
+                    Chem.SanitizeMol(mol)
+                    return mol, None
+                except (ValueError, RuntimeError):  # RDKit's sanitisation errors are ValueErrors
+                    pass
     return read_structure(item, limits)
 
 
@@ -577,11 +859,14 @@ def _prepare(item: str | Chem.Mol, limits: Limits, table: ScreenTable, quick: bo
 
 
 class _Search:
-    """What every structure's search shares: queries, screens, limits, what to keep."""
+    """What every structure's search shares: queries, screens, search order, limits, what to
+    keep. Made once by `match_many`, before the workers are forked (they inherit it)."""
 
     def __init__(self, patterns: Sequence[Pattern], limits: Limits, evidence: bool) -> None:
         self.queries = [p.query for p in patterns]
         self.table = ScreenTable(patterns)
+        order, self.implied = search_order(patterns)
+        self.order = np.array(order, dtype=np.intp)
         self.evidence = evidence
         self.all_params = _params(limits)
         self.one_params = _params(Limits(max_matches=1))
@@ -596,45 +881,53 @@ class _Search:
             known = self._wanted[id(wanted)] = (wanted, row)
         return known[1]
 
-    def row(self, index: int, mol: Chem.Mol, facts: Facts, candidates: list[int]) -> list[Any]:
-        """The structure's result as plain values (hits, atoms or None, charge, elements)."""
+    def row(self, index: int, mol: Chem.Mol, facts: Facts, candidates: list[int],
+            possible: list[bool]) -> list[Any]:
+        """The structure's result as plain values (hits, atoms or None, charge, elements).
+
+        `candidates`: the wanted patterns its screens let through, in search order;
+        `possible[p]`: False once pattern p is known not to match (by its screen, or searched),
+        which rules out every pattern that implies p.
+        """
         hits: list[int] = []
         atoms: list[Any] = []
         skeletons: dict[int, bool] = {}
-        table = self.table
+        table, implied, queries = self.table, self.implied, self.queries
         try:
             for p in candidates:
+                found: Any = all(map(possible.__getitem__, implied[p]))
                 s = table.skeleton_of[p]
-                if s is not None:
-                    if s not in skeletons:
-                        skeletons[s] = mol.HasSubstructMatch(table.skeletons[s], self.one_params)
-                    if not skeletons[s]:
-                        continue
-                if self.evidence:
-                    found = mol.GetSubstructMatches(self.queries[p], self.all_params)
-                    if found:
-                        hits.append(p)
-                        atoms.append(found)  # tuples travel as JSON lists
-                elif mol.HasSubstructMatch(self.queries[p], self.one_params):
+                if found and s is not None:
+                    found = skeletons.get(s)
+                    if found is None:
+                        found = skeletons[s] = mol.HasSubstructMatch(table.skeletons[s], self.one_params)
+                if found:
+                    if self.evidence:
+                        found = mol.GetSubstructMatches(queries[p], self.all_params)
+                        if found:
+                            atoms.append(found)  # tuples travel as JSON lists
+                    else:
+                        found = mol.HasSubstructMatch(queries[p], self.one_params)
+                if found:
                     hits.append(p)
+                else:
+                    possible[p] = False
         except Exception as exc:  # noqa: BLE001 - reported for this structure only
             return [index, [], None, 0, "", f"matching failed: {type(exc).__name__}: {exc}"]
         return [index, hits, atoms if self.evidence else None, facts.charge,
                 ",".join(sorted(facts.elements)), None]
 
 
-def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
+def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], search: _Search,
          wanted: Sequence[Iterable[int]], limits: Limits, progress: Any,
-         send: Callable[[list[list[Any]]], None], evidence: bool = True, quick: bool = False,
-         elements: bool = True) -> None:
+         send: Callable[[list[list[Any]]], None], quick: bool = False, elements: bool = True) -> None:
     """Match in chunks: read a chunk, screen it at once, then search each structure.
 
     `progress` holds (index, start time) of the structure being worked on; its time carries
-    over from reading to searching, so one bound covers both. With `evidence`, every match
-    of each matching pattern is kept (up to `limits.max_matches`); without, one is enough.
-    Without `elements`, which elements a structure has is not found out.
+    over from reading to searching, so one bound covers both. With the search's `evidence`,
+    every match of each matching pattern is kept (up to `limits.max_matches`); without, one
+    is enough. Without `elements`, which elements a structure has is not found out.
     """
-    search = _Search(patterns, limits, evidence)
     table = search.table
     for at in range(0, len(todo), _CHUNK):
         chunk = todo[at:at + _CHUNK]
@@ -652,15 +945,19 @@ def _run(todo: Sequence[int], items: Sequence[str | Chem.Mol], patterns: Sequenc
                 rows.append([index, [], None, 0, "", error])
             else:
                 ready.append((index, mol, facts, time.monotonic() - started))
-        if ready and patterns:
-            ok = table.passing([r[2] for r in ready])
-            ok &= np.stack([search.mask(wanted[r[0]]) for r in ready])
+        possible: list[list[bool]] = [[] for _ in ready]
+        chosen = np.zeros((len(ready), 0), dtype=bool)
+        if ready and search.queries:
+            screened = table.passing([r[2] for r in ready])
+            possible = screened.tolist()
+            # The wanted patterns that pass, columns in search order.
+            chosen = (screened & np.stack([search.mask(wanted[r[0]]) for r in ready]))[:, search.order]
         for row, (index, mol, facts, spent) in enumerate(ready):
             progress[2] = 1.0  # searching
             progress[1] = time.monotonic() - spent
             progress[0] = float(index)
-            candidates = np.flatnonzero(ok[row]).tolist() if patterns else []
-            rows.append(search.row(index, mol, facts, candidates))
+            candidates = search.order[chosen[row]].tolist()
+            rows.append(search.row(index, mol, facts, candidates, possible[row]))
         send(rows)
 
 
@@ -695,8 +992,8 @@ class _Quiet:
         pass
 
 
-def _worker(todo: list[int], items: Sequence[str | Chem.Mol], patterns: Sequence[Pattern],
-            wanted: Sequence[Iterable[int]], limits: Limits, evidence: bool, elements: bool,
+def _worker(todo: list[int], items: Sequence[str | Chem.Mol], search: _Search,
+            wanted: Sequence[Iterable[int]], limits: Limits, elements: bool,
             progress: Any, conn: Any) -> None:
     # The forked worker shares the parent's heap; a cyclic collection would walk (and so
     # copy) all of it, and the worker's own garbage is freed by reference counting.
@@ -705,9 +1002,11 @@ def _worker(todo: list[int], items: Sequence[str | Chem.Mol], patterns: Sequence
     # bad structure captures its own lines.
     rdBase.LogToPythonStderr()
     sys.stderr = _Quiet()  # type: ignore[assignment]
-    _run(todo, items, patterns, wanted, limits, progress,
-         lambda rows: conn.send_bytes(json.dumps(rows).encode()), evidence, True, elements)
-    conn.send_bytes(json.dumps([None]).encode())
+    # Rows hold no cycles; not checking for them saves a third of the encoding.
+    encode = json.JSONEncoder(check_circular=False, separators=(",", ":")).encode
+    _run(todo, items, search, wanted, limits, progress,
+         lambda rows: conn.send_bytes(encode(rows).encode()), True, elements)
+    conn.send_bytes(encode([None]).encode())
     conn.close()
 
 
@@ -731,9 +1030,9 @@ class _Lane:
     def _start(self) -> None:
         self.progress = self.ctx.RawArray("d", [-1.0, time.monotonic(), 0.0])
         self.receiver, sender = self.ctx.Pipe(duplex=False)
-        items, patterns, wanted, limits, evidence, elements = self.job
+        items, search, wanted, limits, _evidence, elements = self.job
         self.proc = self.ctx.Process(target=_worker, daemon=True,
-                                     args=(self.todo, items, patterns, wanted, limits, evidence,
+                                     args=(self.todo, items, search, wanted, limits,
                                            elements, self.progress, sender))
         self.proc.start()
         sender.close()
@@ -810,23 +1109,26 @@ def match_many(patterns: Sequence[Pattern], items: Sequence[str | Chem.Mol],
     results: dict[int, Outcome] = {}
     todo = list(range(len(items)))
     ctx = _fork_context()
+    search = _Search(patterns, limits, evidence)
     if ctx is None or not todo:  # pragma: no cover - no fork: in process, maxMatches only
         decode = _Decoder(wanted, evidence)
-        _run(todo, items, patterns, wanted, limits, [0.0, 0.0, 0.0],
-             lambda rows: results.update(decode(r) for r in json.loads(json.dumps(rows))), evidence,
+        _run(todo, items, search, wanted, limits, [0.0, 0.0, 0.0],
+             lambda rows: results.update(decode(r) for r in json.loads(json.dumps(rows))),
              False, elements)  # through JSON as from a worker: atoms as lists
         return [results[i] for i in range(len(items))]
     bound = max(0.01, float(limits.rule_seconds))
     count = max(1, min(workers or default_workers(len(todo)), len(todo)))
-    size = -(-len(todo) // count)
-    job = (items, patterns, wanted, limits, evidence, elements)
-    lanes = [_Lane(ctx, todo[k * size:(k + 1) * size], job, bound) for k in range(count)]
+    job = (items, search, wanted, limits, evidence, elements)
+    # Every count-th structure to each worker: neighbours in a list are often alike (one
+    # source after another), so contiguous halves can leave one worker with the heavy end.
+    lanes = [_Lane(ctx, todo[k::count], job, bound) for k in range(count)]
     try:
-        while not all(lane.done for lane in lanes):
-            handles = [h for lane in lanes for h in lane.handles()]
-            ready = wait(handles, timeout=min(0.05, bound / 4))
-            for lane in lanes:
-                lane.step(ready, results)
+        with collector_paused():  # an Outcome per structure, decoded as rows arrive
+            while not all(lane.done for lane in lanes):
+                handles = [h for lane in lanes for h in lane.handles()]
+                ready = wait(handles, timeout=min(0.05, bound / 4))
+                for lane in lanes:
+                    lane.step(ready, results)
     finally:
         for lane in lanes:
             if not lane.done:

@@ -25,6 +25,7 @@ from typing import Any, NamedTuple
 
 import yaml
 
+from parentage._collection import collector_paused
 from parentage.chem.smarts import (
     DEFAULT_LIMITS,
     ELEMENT_SYMBOLS,
@@ -94,6 +95,19 @@ class Holds(NamedTuple):
     smarts: tuple[str, ...] = ()  # the patterns that matched (holds) or that decided (fails)
     atoms: tuple[Sequence[int], ...] = ()
     reason: str = ""  # why it fails
+
+
+class _Entry(NamedTuple):
+    """One verdict on a structure less its atoms: the rule that decided it, the SMARTS that
+    matched or decided, and the patterns whose matched atoms make its evidence."""
+
+    cls: str
+    opinion: str
+    rule: int
+    smarts: tuple[str, ...]
+    sources: tuple[int, ...]
+    reason: str
+    implied_by: str | None  # the class of the sufficient rule that implies this class
 
 
 # -- loading ----------------------------------------------------------------------------------
@@ -251,9 +265,12 @@ class RuleSet:
         self._kinds = {cls: tuple(tuple(i for i in indices if self.rules[i].kind in kinds)
                                   for kinds in (_NECESSARY, _SUFFICIENT, ("necessary",)))
                        for cls, indices in self.by_class.items()}
-        self._cache: dict[tuple[Limits, str], Outcome] = {}
+        self._cache: dict[Limits, dict[str, Outcome]] = {}  # limits -> SMILES text -> outcome
         self.workers: int | None = None  # matching processes; None: one per CPU for big jobs
         self._elements = any(r.has_elements or r.lacks_elements for r in self.rules)
+        self._charges = any(r.net_charge for r in self.rules)
+        self._where = [r.where for r in self.rules]
+        self._kind_of = [r.kind for r in self.rules]
 
     def __len__(self) -> int:
         return len(self.rules)
@@ -281,13 +298,19 @@ class RuleSet:
         results: list[Outcome | None] = [None] * len(structures)
         todo: list[int] = []
         need: list[frozenset[int]] = []
-        pattern_sets: dict[frozenset[int], frozenset[int]] = {}  # most terms share their rules
+        # Most terms share one set of rules (the same object): its patterns are found once.
+        by_object: dict[int, tuple[Any, frozenset[int]]] = {}
+        by_content: dict[frozenset[int], frozenset[int]] = {}
+        cache = self._cache.setdefault(limits, {})
         for i, (item, rules) in enumerate(zip(structures, wanted_rules)):
-            key = frozenset(rules)
-            wanted = pattern_sets.get(key)
-            if wanted is None:
-                wanted = pattern_sets[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
-            hit = self._cache.get((limits, item)) if isinstance(item, str) else None
+            known = by_object.get(id(rules))
+            if known is None or known[0] is not rules:
+                key = frozenset(rules)
+                if key not in by_content:
+                    by_content[key] = frozenset().union(*(self._rule_patterns[r] for r in key))
+                known = by_object[id(rules)] = (rules, by_content[key])
+            wanted = known[1]
+            hit = cache.get(item) if isinstance(item, str) else None
             if hit is not None and evidence and not hit.evidence and hit.error is None:
                 hit = None  # found without atoms: search again for them
             missing = wanted - hit.checked if hit is not None else wanted
@@ -297,20 +320,21 @@ class RuleSet:
                 todo.append(i)
                 need.append(missing)
         if todo:
-            if len(self._cache) > _CACHE_LIMIT:
+            if sum(len(kept) for kept in self._cache.values()) > _CACHE_LIMIT:
                 self._cache.clear()
+                cache = self._cache.setdefault(limits, {})
             fresh = match_many(self.patterns, [structures[i] for i in todo], need, limits, self.workers,
                                evidence, self._elements)
             for i, outcome in zip(todo, fresh):
                 item = structures[i]
-                old = self._cache.get((limits, item)) if isinstance(item, str) else None
+                old = cache.get(item) if isinstance(item, str) else None
                 if old is not None and outcome.error is None and old.evidence >= outcome.evidence:
                     outcome = outcome._replace(hits=old.hits | outcome.hits,
                                                matches={**old.matches, **outcome.matches},
                                                checked=old.checked | outcome.checked,
                                                evidence=old.evidence and outcome.evidence)
                 if isinstance(item, str):
-                    self._cache[(limits, item)] = outcome
+                    cache[item] = outcome
                 results[i] = outcome
         return [r for r in results if r is not None]
 
@@ -357,41 +381,73 @@ class RuleSet:
                 column &= ~present[symbol]
         return out
 
-    def holds(self, index: int, outcome: Outcome) -> Holds:
-        """Whether rule `index` holds, given the structure's matches."""
+    def _holds(self, index: int, outcome: Outcome) -> tuple[bool, tuple[str, ...], tuple[int, ...], str]:
+        """(holds, the SMARTS that matched or decided, the patterns whose matched atoms are the
+        evidence, why it fails): `holds` without reading the atoms."""
         rule = self.rules[index]
         any_of, all_of, none_of = self._parts[index]
-        hits, matches, texts = outcome.hits, outcome.matches, self.texts
-        smarts: list[str] = []
-        parts: list[Sequence[Sequence[int]]] = []  # the atoms of each pattern that holds
+        hits, texts = outcome.hits, self.texts
+        sources: list[int] = []
         if any_of:
-            found = [p for p in any_of if p in hits]
-            if not found:
-                return Holds(False, rule.any_of, (), "no any_of pattern matches")
-            for p in found:
-                smarts.append(texts[p])
-                parts.append(matches.get(p, ()))
+            sources = [p for p in any_of if p in hits]
+            if not sources:
+                return False, rule.any_of, (), "no any_of pattern matches"
         for p in all_of:
             if p not in hits:
-                return Holds(False, (texts[p],), (), "an all_of pattern does not match")
-            smarts.append(texts[p])
-            parts.append(matches.get(p, ()))
+                return False, (texts[p],), (), "an all_of pattern does not match"
+            sources.append(p)
         for p in none_of:
             if p in hits:
-                return Holds(False, (texts[p],), tuple(matches.get(p, ())), "a none_of pattern matches")
+                return False, (texts[p],), (p,), "a none_of pattern matches"
         if rule.net_charge and outcome.charge not in rule.net_charge:
-            return Holds(False, (), (), f"net charge {outcome.charge} is not "
-                                        f"{' or '.join(str(c) for c in rule.net_charge)}")
+            return False, (), (), f"net charge {outcome.charge} is not {' or '.join(str(c) for c in rule.net_charge)}"
         for symbol in rule.has_elements:
             if symbol not in outcome.elements:
-                return Holds(False, (), (), f"has no {symbol}")
+                return False, (), (), f"has no {symbol}"
         for symbol in rule.lacks_elements:
             if symbol in outcome.elements:
-                return Holds(False, (), (), f"has {symbol}")
-        return Holds(True, tuple(smarts), tuple(parts[0]) if len(parts) == 1 else
-                     tuple(a for part in parts for a in part))
+                return False, (), (), f"has {symbol}"
+        return True, tuple(texts[p] for p in sources), tuple(sources), ""
+
+    def holds(self, index: int, outcome: Outcome) -> Holds:
+        """Whether rule `index` holds, given the structure's matches."""
+        holds, smarts, sources, reason = self._holds(index, outcome)
+        matches = outcome.matches
+        return Holds(holds, smarts, tuple(m for p in sources for m in matches.get(p, ())), reason)
 
     # -- verdicts ---------------------------------------------------------------------------
+    def _key(self, outcome: Outcome) -> tuple[Any, ...] | None:
+        """What the rules' verdicts on a structure depend on, less the matched atoms: its hits,
+        and its net charge and elements where a rule asks. None for an unread structure."""
+        if outcome.error is not None:
+            return None
+        return (outcome.hits, outcome.charge if self._charges else 0,
+                outcome.elements if self._elements else frozenset())
+
+    def _plans(self, ontology: Ontology, outcomes: Sequence[Outcome]) -> tuple[
+            list[tuple[Any, ...] | None], dict[tuple[Any, ...], tuple[list[bool], dict[str, int]]]]:
+        """Each outcome's `_key`, and for each key: whether each rule holds, and the classes a
+        holding sufficient rule implies (class -> the first such rule). Terms mostly share keys."""
+        import numpy as np
+
+        keys = [self._key(o) for o in outcomes]
+        firsts: dict[tuple[Any, ...], Outcome] = {}
+        for key, outcome in zip(keys, outcomes):
+            if key is not None and key not in firsts:
+                firsts[key] = outcome
+        table = self.holds_table(list(firsts.values()))
+        triggers = np.zeros(len(self.rules), dtype=bool)
+        triggers[list(self.triggers)] = True
+        plans: dict[tuple[Any, ...], tuple[list[bool], dict[str, int]]] = {}
+        for row, key in enumerate(firsts):
+            found: dict[str, int] = {}
+            for r in np.flatnonzero(table[row] & triggers).tolist():
+                cls = self.rules[r].cls
+                for implied in (cls, *ontology.ancestors(cls)):
+                    found.setdefault(implied, r)
+            plans[key] = (table[row].tolist(), found)
+        return keys, plans
+
     def verdicts(self, ontology: Ontology, term_ids: Iterable[str], structures: Mapping[str, Any],
                  limits: Limits = DEFAULT_LIMITS,
                  also: Mapping[str, Iterable[str]] | None = None) -> dict[str, list[Verdict]]:
@@ -401,8 +457,11 @@ class RuleSet:
         implies, and `also[term]` with their ancestors (e.g. classes another tier proposes, so
         that a defining rule that fails can say no).
         """
-        import numpy as np
+        with collector_paused():  # thousands of outcomes and verdicts are built
+            return self._verdicts(ontology, term_ids, structures, limits, also)
 
+    def _verdicts(self, ontology: Ontology, term_ids: Iterable[str], structures: Mapping[str, Any],
+                  limits: Limits, also: Mapping[str, Iterable[str]] | None) -> dict[str, list[Verdict]]:
         ids = [t for t in term_ids if t in structures]
         lineage = {t: ontology.ancestors(t) for t in ids}
         for t, proposed in (also or {}).items():
@@ -417,36 +476,36 @@ class RuleSet:
         first = [per_lineage[lineage[t]] for t in ids]
         items = [structures[t] for t in ids]
         outcomes = self.outcomes(items, first, limits)
+        keys, plans = self._plans(ontology, outcomes)
         # Classes a holding sufficient rule implies may bring necessary rules not yet matched.
-        table = self.holds_table(outcomes)
-        triggers = np.zeros(len(self.rules), dtype=bool)
-        triggers[list(self.triggers)] = True
-        implies: dict[int, list[str]] = {}  # rule -> the classes it implies, its own first
-        implied: dict[str, dict[str, int]] = {}  # term -> implied class -> the rule implying it
+        implied = [plans[k][1] if k is not None else {} for k in keys]
+        extras: dict[tuple[int, int], set[int]] = {}
         second: list[set[int]] = []
-        for row, (t, outcome, done) in enumerate(zip(ids, outcomes, first)):
-            found: dict[str, int] = {}
-            if outcome.error is None:
-                for r in np.flatnonzero(table[row] & triggers).tolist():
-                    if r not in implies:
-                        cls = self.rules[r].cls
-                        implies[r] = [cls, *ontology.ancestors(cls)]
-                    for cls in implies[r]:
-                        found.setdefault(cls, r)
-            implied[t] = found
-            extra = {r for c in found for r in self.by_class.get(c, ())} - done if found else set()
+        for found, done in zip(implied, first):
+            extra = extras.get((id(found), id(done)))
+            if extra is None:
+                extra = {r for c in found for r in self.by_class.get(c, ())} - done if found else set()
+                extras[(id(found), id(done))] = extra
             second.append(extra)
         if any(second):
             outcomes = self.outcomes(items, [a | b for a, b in zip(first, second)], limits)
-            table = self.holds_table(outcomes)
-        return {t: self._judge(t, lineage[t], implied[t], outcome, table[row].tolist())
-                for row, (t, outcome) in enumerate(zip(ids, outcomes))}
+            keys, plans = self._plans(ontology, outcomes)
+        out: dict[str, list[Verdict]] = {}
+        judged: dict[tuple[Any, ...], list[_Entry]] = {}
+        for t, outcome, key, found in zip(ids, outcomes, keys, implied):
+            if key is None:
+                out[t] = [Verdict(t, "", "rule", "abstains", {"reason": outcome.error})]
+                continue
+            # The implied classes follow from the key, so (lineage, key) decides the entries.
+            entries = judged.get((lineage[t], key))
+            if entries is None:
+                entries = judged[(lineage[t], key)] = self._judge(lineage[t], found, outcome, plans[key][0])
+            out[t] = self._fill(t, entries, outcome.matches)
+        return out
 
-    def _judge(self, term: str, lineage: frozenset[str], implied: Mapping[str, int],
-               outcome: Outcome, holding: Sequence[bool]) -> list[Verdict]:
-        """The verdicts on one term; `holding[i]`: whether rule i holds (`holds_table`)."""
-        if outcome.error is not None:
-            return [Verdict(term, "", "rule", "abstains", {"reason": outcome.error})]
+    def _judge(self, lineage: frozenset[str], implied: Mapping[str, int], outcome: Outcome,
+               holding: Sequence[bool]) -> list[_Entry]:
+        """The verdicts on one structure, less its atoms; `holding[i]`: whether rule i holds."""
         out = []
         kinds = self._kinds
         for cls in sorted(lineage.union(implied)):
@@ -454,26 +513,35 @@ class RuleSet:
             if split is None:
                 if cls in implied:
                     r = implied[cls]
-                    out.append(Verdict(term, cls, "rule", "supports",
-                                       {**self._evidence(r, self.holds(r, outcome)),
-                                        "implied_by": self.rules[r].cls}))
+                    _, smarts, sources, reason = self._holds(r, outcome)
+                    out.append(_Entry(cls, "supports", r, smarts, sources, reason, self.rules[r].cls))
                 continue
             must, enough, only_necessary = split
             failed = [i for i in must if not holding[i]]
             decided = failed or [i for i in enough if holding[i]] or [i for i in only_necessary if holding[i]]
             if decided:
                 chosen = decided[0]
-                out.append(Verdict(term, cls, "rule", "opposes" if failed else "supports",
-                                   self._evidence(chosen, self.holds(chosen, outcome))))
+                _, smarts, sources, reason = self._holds(chosen, outcome)
+                out.append(_Entry(cls, "opposes" if failed else "supports", chosen, smarts, sources, reason, None))
         return out
 
-    def _evidence(self, index: int, holds: Holds) -> dict[str, Any]:
-        rule = self.rules[index]
-        data: dict[str, Any] = {"rule": rule.where, "kind": rule.kind, "smarts": list(holds.smarts),
-                                "atoms": list(holds.atoms)}  # lists already (decoded JSON)
-        if holds.reason:
-            data["reason"] = holds.reason
-        return data
+    def _fill(self, term: str, entries: Sequence[_Entry], matches: Mapping[int, Sequence[Any]]) -> list[Verdict]:
+        """The verdicts of `_judge`'s entries, with the structure's matched atoms."""
+        out = []
+        where, kinds = self._where, self._kind_of
+        for cls, opinion, rule, smarts, sources, reason, implied_by in entries:
+            if len(sources) == 1:
+                atoms = list(matches.get(sources[0], ()))
+            else:
+                atoms = [m for p in sources for m in matches.get(p, ())]
+            evidence: dict[str, Any] = {"rule": where[rule], "kind": kinds[rule], "smarts": list(smarts),
+                                        "atoms": atoms}
+            if reason:
+                evidence["reason"] = reason
+            if implied_by is not None:
+                evidence["implied_by"] = implied_by
+            out.append(Verdict(term, cls, "rule", opinion, evidence))
+        return out
 
 
 # -- agreement with the curation (`parentage rules test`) -------------------------------------
