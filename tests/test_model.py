@@ -23,8 +23,8 @@ from parentage.arbitration import arbitrate
 from parentage.config import Config, ModelSettings
 from parentage.snapshot import Ontology, Snapshot, Term
 from parentage.store import Store
-from parentage.tiers.model import Model, load_or_train, model_key
-from parentage.tiers.model_train import _histograms, calibrate, platt, train
+from parentage.tiers.model import Member, Model, load_or_train, model_key
+from parentage.tiers.model_train import Negatives, _histograms, calibrate, chunk_width, platt, train
 
 SETTINGS = ModelSettings(size=16384, min_members=20)
 CONFIG = replace(Config(), model=SETTINGS)
@@ -384,6 +384,43 @@ def test_stored_model_reused_until_enough_changes(tmp_path, subset: tuple) -> No
     moved = {m.id: (fgbench.ROOT,) for m in filed[:6]}
     fresh = load_or_train(ontology_of(mols, moved, blob="3" * 40), small, store, revision="r3")
     assert fresh is not None and fresh.revision == "r3"
+
+
+def test_training_in_chunks_of_classes_stores_the_same_model(subset: tuple) -> None:
+    """Fitting, scoring and calibrating a few classes at a time changes no stored array."""
+    groups = {g.key: g.id for g in fgbench.groups()}
+    onto = ontology_of(subset[0][:1200])
+    # A disjointness axiom between classes that co-occur: the figures resolve clashes too.
+    halogen = onto.terms[groups["Halogen"]]._replace(disjoint_from=(groups["Amine.Aromatic"],))
+    onto = Ontology("base", [Snapshot("fgb.obo", None, [*(t for t in onto.terms.values()
+                                                          if t.id != halogen.id), halogen])])
+    small = replace(CONFIG, model=replace(SETTINGS, folds=3))
+    whole = train(onto, small, Store(None))
+    assert whole is not None and len(whole.classes) > 6
+    assert chunk_width(1200, len(whole.classes)) == len(whole.classes)  # one chunk by default
+    chunked = train(onto, small, Store(None), classes_per_chunk=5)  # the last chunk is short
+    assert chunked is not None and len(whole.classes) % 5
+    assert whole.arrays.keys() == chunked.arrays.keys()
+    for name, array in whole.arrays.items():
+        assert array.dtype == chunked.arrays[name].dtype, name
+        assert np.array_equal(array, chunked.arrays[name]), name
+    assert len(whole.arrays["oof_prob"]) > len(whole.arrays["ref_fold"])  # not all at the floor
+    assert whole.meta == chunked.meta
+
+
+def test_hard_negatives_are_the_parents_other_members() -> None:
+    terms = [Term("C:root", "root"), Term("C:a", "a", ("C:root",)), Term("C:b", "b", ("C:root",)),
+             Term("C:a1", "a1", ("C:a",)), Term("C:a2", "a2", ("C:a", "C:b")),
+             Term("C:d", "d", ("C:gone",))]  # a dangling parent counts as the root
+    onto = Ontology("base", [Snapshot("t.obo", None, terms)])
+    filed = {"m0": "C:a1 C:a C:root", "m1": "C:a2 C:a C:b C:root", "m2": "C:a C:root",
+             "m3": "C:b C:root", "m4": "C:d C:gone", "m5": "C:a1 C:a C:b C:root", "m6": "C:gone"}
+    members = [Member(m, "C", frozenset(cs.split()), "") for m, cs in filed.items()]
+    classes = ["C:a", "C:a1", "C:a2", "C:b", "C:d"]
+    negatives = Negatives(members, classes, onto)
+    found = {c: [members[i].id for i in negatives(j)] for j, c in enumerate(classes)}
+    assert found == {"C:a": ["m3"], "C:a1": ["m1", "m2"], "C:a2": ["m0", "m2", "m3", "m5"],
+                     "C:b": ["m0", "m2"], "C:d": ["m0", "m1", "m2", "m3", "m5", "m6"]}
 
 
 def test_platt_matches_scikit_learn_logistic_regression() -> None:

@@ -3,8 +3,10 @@ from __future__ import annotations
 
 import json
 import multiprocessing
+import os
 import sqlite3
 import time
+import tracemalloc
 import zlib
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -13,7 +15,7 @@ import pytest
 
 from parentage import parse
 from parentage.cli import main
-from parentage.store import Store, default_store_path
+from parentage.store import BLOB_IO_MIN, Store, default_store_path
 
 if TYPE_CHECKING:
     from conftest import GitRepo
@@ -91,6 +93,31 @@ def test_model_file_round_trip_and_damage(tmp_path: Path) -> None:
     for damaged in (blob[: len(blob) // 2], b"not a model", blob.replace(b"<f2", b"|O8", 1)):
         with pytest.raises(ParentageError, match="stored model is unreadable"):
             Model.from_bytes(damaged)
+
+
+@pytest.mark.skipif(not hasattr(sqlite3.Connection, "blobopen"), reason="blob I/O needs Python 3.11")
+def test_large_values_go_through_without_whole_copies(tmp_path: Path) -> None:
+    """A stored model of BLOB_IO_MIN bytes or more is not copied whole on its way in or out."""
+    big = os.urandom(BLOB_IO_MIN + 1000)  # random: zlib cannot shrink it either
+    store = Store(str(tmp_path / "store.sqlite"))
+    store.put_bytes("model", "old", b"a smaller value first", compress=False)
+    tracemalloc.start()
+    try:
+        store.put_bytes("model", "old", big, compress=False)  # replaces it
+        put_peak = tracemalloc.get_traced_memory()[1]
+        store.put_bytes("model", "deflated", big)  # compressed: an ordinary row, read back in pieces
+        store.close()
+        again = Store(str(tmp_path / "store.sqlite"))
+        tracemalloc.reset_peak()
+        back = again.get_bytes("model", "old")
+        get_peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert back == big
+    assert again.get_bytes("model", "deflated") == big
+    assert put_peak < len(big) / 2  # no copy with an encoding byte in front
+    assert get_peak < 1.5 * len(big)  # the value alone, not the fetched row as well
+    again.close()
 
 
 def test_no_pickle_in_the_file(tmp_path: Path) -> None:

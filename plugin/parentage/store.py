@@ -27,6 +27,12 @@ from parentage.errors import ParentageError
 # Bump when the layout of any stored value changes (a Term field, a model array...), so an
 # old cache is never read with a new layout even within one release.
 LAYOUT = 7
+# Values of at least this many bytes are written and read through SQLite's incremental blob
+# I/O (Python 3.11+), never as one bound parameter or one fetched row: storing a 157 MB model
+# as a parameter raised the peak memory by three times its size (our encoding byte put in front
+# of a copy, SQLite's own copy of the parameter, the record it builds), and reading it back
+# held the fetched row and the value sliced from it.
+BLOB_IO_MIN = 1 << 24
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS entry (
@@ -97,10 +103,19 @@ class Store:
     # -- bytes ------------------------------------------------------------------------------
     def get_bytes(self, namespace: str, key: str) -> bytes | None:
         with self._lock:
-            row = self._connect().execute(
-                "SELECT value FROM entry WHERE namespace=? AND key=? AND version=?",
-                (namespace, key, self.version)).fetchone()
-        value = None if row is None else _unpack(row[0])
+            conn = self._connect()
+            big = BLOB_IO_MIN if hasattr(conn, "blobopen") else None
+            # length() of a blob is read from its header: a big value is not loaded here.
+            row = conn.execute(
+                "SELECT CASE WHEN ?1 IS NULL OR length(value) < ?1 THEN value END, rowid FROM entry "
+                "WHERE namespace=?2 AND key=?3 AND version=?4",
+                (big, namespace, key, self.version)).fetchone()
+            if row is not None and row[0] is None:
+                with conn.blobopen("entry", "value", row[1], readonly=True) as blob:
+                    kind = blob.read(1)
+                    value = _unpack_parts(kind, blob.read())
+            else:
+                value = None if row is None else _unpack(row[0])
         if value is None:
             self.misses += 1
             return None
@@ -114,14 +129,25 @@ class Store:
                        compress: bool = True) -> None:
         """Store values; `compress=False` for large values read on the hot path, where
         inflating costs more than reading the bigger row (a 30 MB snapshot: ~0.1 s)."""
-        rows = [(namespace, k, self.version, _pack(v, compress)) for k, v in items]
-        if not rows:
+        rows, big = [], []
+        for k, v in items:
+            if not compress and len(v) >= BLOB_IO_MIN and hasattr(sqlite3.Connection, "blobopen"):
+                big.append((k, v))
+            else:
+                rows.append((namespace, k, self.version, _pack(v, compress)))
+        if not rows and not big:
             return
         with self._lock:
             conn = self._connect()
             conn.execute("BEGIN IMMEDIATE")
             try:
                 conn.executemany("INSERT OR REPLACE INTO entry VALUES (?, ?, ?, ?)", rows)
+                for k, v in big:
+                    cursor = conn.execute("INSERT OR REPLACE INTO entry VALUES (?, ?, ?, zeroblob(?))",
+                                          (namespace, k, self.version, len(v) + 1))
+                    with conn.blobopen("entry", "value", cursor.lastrowid or 0) as blob:
+                        blob.write(b"r")
+                        blob.write(v)
                 conn.execute("COMMIT")
             except BaseException:
                 conn.execute("ROLLBACK")
@@ -223,11 +249,16 @@ def _pack(value: bytes, compress: bool) -> bytes:
 
 def _unpack(stored: bytes) -> bytes | None:
     """The value, or None for an encoding this version does not write (read as a miss)."""
-    if stored[:1] == b"r":
-        return stored[1:]
-    if stored[:1] == b"z":
+    return _unpack_parts(stored[:1], stored[1:])
+
+
+def _unpack_parts(kind: bytes, rest: bytes) -> bytes | None:
+    """`_unpack` of an encoding byte and the bytes after it."""
+    if kind == b"r":
+        return rest
+    if kind == b"z":
         try:
-            return zlib.decompress(stored[1:])
+            return zlib.decompress(rest)
         except zlib.error:
             return None
     return None

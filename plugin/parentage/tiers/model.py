@@ -689,11 +689,9 @@ class Model:
         thresholds, low, high = self.arrays["thresholds"], self.arrays["low"], self.arrays["high"]
         k = len(self.classes)
         closed = self._closed(probs)
-        strong = np.zeros(closed.shape, dtype=bool)
-        strong[:, :k] = closed[:, :k] & (probs >= high)
-        # An ancestor of a confident class is confident too.
-        r, c = np.nonzero(strong[:, self._strict_child] if len(self._strict_child) else strong[:, :0])
-        strong[r, self._strict_parent[c]] = True
+        # An ancestor of a confident class is confident too: closed upward like predictions
+        # (a gather of every (class, ancestor) column took 25 s of training at 200k members).
+        strong = self._up(closed[:, :k] & (probs >= high))
         strong &= closed
         doubtful = (probs > low) & (probs < thresholds) & (probs >= 0.5 * thresholds)
         unsure = ~closed.any(axis=1) & doubtful.any(axis=1)

@@ -8,7 +8,10 @@ Each class learns from a bounded set: all its members, members of its parents th
 it (the negatives that look most alike), and a capped random sample of the rest. Every member
 is then scored by the fold model that never saw it, so Platt parameters, thresholds, margins
 and figures are fitted on out-of-fold scores of all members, whatever was sampled. The fits
-run in two processes where there are two cores. Everything stored is a numpy array or JSON.
+run in two processes where there are two cores. Nothing held grows with members times classes:
+memberships are sparse, the out-of-fold scores of a chunk of classes are calibrated as soon as
+its fits are in and only their probabilities above OOF_FLOOR are kept. Everything stored is a
+numpy array or JSON.
 """
 from __future__ import annotations
 
@@ -16,7 +19,7 @@ import multiprocessing
 import os
 from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import asdict
-from typing import Any, TypeVar
+from typing import Any, NamedTuple, TypeVar
 
 import numpy as np
 import sklearn
@@ -55,6 +58,8 @@ ROW_BUDGET = 600_000
 ROWS_MIN = 600
 BINS = 512  # score histogram bins per class for Platt scaling and thresholds
 EVAL_SAMPLE = 1000
+# Out-of-fold scores held at once while training: members x classes of a chunk, float32 (64 MB).
+SCORE_CELLS = 16_000_000
 # Opposing a curated class needs a calibrated probability of at most OPPOSE_P (at most one term
 # in a hundred with that score is filed there), suggesting one at least SUGGEST_P (four in five).
 OPPOSE_P = 0.01
@@ -70,35 +75,52 @@ def features(bits: Sequence[np.ndarray], size: int) -> sparse.csr_matrix:
     return sparse.csr_matrix((data, indices, indptr), shape=(len(bits), size))
 
 
-def labels(members: Sequence[Member], classes: Sequence[str]) -> np.ndarray:
+def labels(members: Sequence[Member], classes: Sequence[str]) -> sparse.csr_matrix:
+    """Membership as a sparse (members, classes) int8 matrix (a dense one grows with members
+    times classes: 0.7 GB for the generated 200k ontology's 3,615 classes)."""
     index = {c: j for j, c in enumerate(classes)}
-    y = np.zeros((len(members), len(classes)), dtype=np.int8)
+    ptr = np.zeros(len(members) + 1, dtype=np.int64)
+    cols: list[int] = []
     for i, m in enumerate(members):
-        for c in m.ancestors:
-            j = index.get(c)
-            if j is not None:
-                y[i, j] = 1
-    return y
+        cols += sorted(index[c] for c in m.ancestors if c in index)
+        ptr[i + 1] = len(cols)
+    indices = np.array(cols, dtype=np.int32)
+    return sparse.csr_matrix((np.ones(len(indices), dtype=np.int8), indices, ptr),
+                             shape=(len(members), len(classes)))
 
 
-def hard_negatives(members: Sequence[Member], classes: Sequence[str], ontology: Ontology) -> list[np.ndarray]:
-    """Per class, the members of its direct parents that are not its members."""
-    parents = []
-    for cls in classes:
-        term = ontology.terms.get(cls)
-        parents.append([p for p in (term.parents if term is not None else ()) if p != cls])
-    wanted = sorted({p for ps in parents for p in ps} | set(classes))
-    column = {c: j for j, c in enumerate(wanted)}
-    inside = labels(members, wanted).astype(bool)
-    everyone = np.ones(len(members), dtype=bool)
-    out = []
-    for cls, ps in zip(classes, parents):
-        # A parent that is not a defined term (dangling) or has no member here counts as the root.
-        rows = np.zeros(len(members), dtype=bool)
-        for p in ps:
-            rows |= inside[:, column[p]] if p in ontology.terms else everyone
-        out.append(np.flatnonzero(rows & ~inside[:, column[cls]]))
-    return out
+def columns(y: sparse.spmatrix) -> list[np.ndarray]:
+    """Per column of a membership matrix, its rows (sorted, int64)."""
+    csc = sparse.csc_matrix(y)
+    csc.sort_indices()
+    return [csc.indices[a:b].astype(np.int64) for a, b in zip(csc.indptr[:-1], csc.indptr[1:])]
+
+
+class Negatives:
+    """Each class's hard negatives, the members of its direct parents that are not its
+    members, built when a fit asks for them: together they can hold far more rows than members."""
+
+    def __init__(self, members: Sequence[Member], classes: Sequence[str], ontology: Ontology) -> None:
+        parents = []
+        for cls in classes:
+            term = ontology.terms.get(cls)
+            parents.append([p for p in (term.parents if term is not None else ()) if p != cls])
+        wanted = sorted({p for ps in parents for p in ps} | set(classes))
+        column = {c: j for j, c in enumerate(wanted)}
+        self.n = len(members)
+        self.inside = columns(labels(members, wanted))
+        self.own = [column[c] for c in classes]
+        # A parent that is not a defined term (dangling) counts as the root: every member.
+        self.parents = [None if any(p not in ontology.terms for p in ps) else [column[p] for p in ps]
+                        for ps in parents]
+
+    def __call__(self, j: int) -> np.ndarray:
+        ps = self.parents[j]
+        rows = np.ones(self.n, dtype=bool) if ps is None else np.zeros(self.n, dtype=bool)
+        for p in ps or ():
+            rows[self.inside[p]] = True
+        rows[self.inside[self.own[j]]] = False
+        return np.flatnonzero(rows)
 
 
 def _sample(rows: np.ndarray, cap: int, rng: np.random.Generator) -> np.ndarray:
@@ -141,16 +163,22 @@ def training_rows(pos: np.ndarray, hard: np.ndarray, pool: np.ndarray, is_member
 # What the worker processes read: set before they fork, so it is shared, never sent.
 _WORK: dict[str, Any] = {}
 
+Fit = tuple[np.ndarray, np.ndarray, float]  # fit_class's (bit indices, weights, bias)
 
-def _fit_task(task: tuple[int, int]) -> tuple[int, int, tuple[np.ndarray, np.ndarray, float]]:
-    f, j = task
+
+def _fit_task(j: int) -> list[Fit]:
+    """Class j's fits, one per fold: its hard negatives are built once for all of them."""
     w = _WORK
-    rng = np.random.default_rng([w["seed"], f, j])
-    keep = w["keep"][f]
-    positives, hard = w["positives"][j], w["hard"][j]
-    pos, neg = training_rows(positives[keep[positives]], hard[keep[hard]], w["pools"][f],
-                             w["yt"][j] == 1, rng, w["cap"])
-    return f, j, fit_class(w["x"], pos, neg, w["seed"])
+    positives, hard = w["positives"][j], w["negatives"](j)
+    is_member = np.zeros(w["x"].shape[0], dtype=bool)
+    is_member[positives] = True
+    fits = []
+    for f, keep in enumerate(w["keep"]):
+        rng = np.random.default_rng([w["seed"], f, j])
+        pos, neg = training_rows(positives[keep[positives]], hard[keep[hard]], w["pools"][f],
+                                 is_member, rng, w["cap"])
+        fits.append(fit_class(w["x"], pos, neg, w["seed"]))
+    return fits
 
 
 def _workers() -> int:
@@ -160,53 +188,74 @@ def _workers() -> int:
     return max(1, min(2, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else 1))
 
 
-def fold_fits(x: sparse.csr_matrix, y: np.ndarray, fold: np.ndarray, hard: list[np.ndarray],
-              seed: int, progress: bool | None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(out-of-fold scores, summed weights (size, classes), summed bias) over the k fold models.
+def chunk_width(members: int, classes: int) -> int:
+    """Classes per chunk of out-of-fold scores: SCORE_CELLS scores, at least one class."""
+    return max(1, min(classes, SCORE_CELLS // max(members, 1)))
 
-    The fits run in two forked processes where the machine has two cores: each fit holds the
-    GIL for much of its ~8 ms, so two threads took 68.8 s where two processes took 43.0 s
-    (the generated 50k ontology's fold fits). A second round of fits without the labels the
-    first round contradicted was tried and dropped: on the functional-group benchmark with
-    injected errors it raised confident opposition to correct parents sixfold.
+
+class Chunk(NamedTuple):
+    """The fold fits of a run of classes, from `start`."""
+
+    start: int
+    scores: np.ndarray  # (members, width) float32: each member scored by the fold model that never saw it
+    total: np.ndarray  # (size, width) float32: the weights summed over the fold models
+    total_bias: np.ndarray  # (width,) float32
+
+
+def fold_fits(x: sparse.csr_matrix, positives: Sequence[np.ndarray], negatives: Negatives,
+              fold: np.ndarray, seed: int, width: int, progress: bool | None) -> Iterator[Chunk]:
+    """The k fold fits of every class, `width` classes at a time, in class order.
+
+    Only a chunk's scores and weight sums are held: a (members, classes) table of scores takes
+    2.9 GB for the generated 200k ontology (200,000 members, 3,615 classes), and calibration
+    wrote a second one. The fits run in two forked processes where the
+    machine has two cores: each fit holds the GIL for much of its ~8 ms, so two threads took
+    68.8 s where two processes took 43.0 s (the generated 50k ontology's fold fits). A second
+    round of fits without the labels the first round contradicted was tried and dropped: on the
+    functional-group benchmark with injected errors it raised confident opposition to correct
+    parents sixfold.
     """
-    n, k_classes = y.shape
-    k = int(fold.max()) + 1
-    scores = np.zeros((n, k_classes), dtype=np.float32)
-    total = np.zeros((x.shape[1], k_classes), dtype=np.float32)
-    total_bias = np.zeros(k_classes, dtype=np.float32)
-    yt = np.ascontiguousarray(y.T)
-    _WORK.update(x=x, yt=yt, seed=seed, cap=row_cap(k_classes), hard=hard, positives=[np.flatnonzero(r) for r in yt],
-                 keep=[fold != f for f in range(k)], pools=[np.flatnonzero(fold != f) for f in range(k)])
-    tasks = [(f, j) for f in range(k) for j in range(k_classes)]
-    xs = x.astype(np.float32)
-    current = np.zeros((x.shape[1], k_classes), dtype=np.float32)
-    bias = np.zeros(k_classes, dtype=np.float32)
-
-    def finish(f: int) -> None:
-        # Results come back in order, fold by fold: a fold's matrix scores its own members and
-        # joins the sum as soon as its last class is fitted, so one matrix is held at a time.
-        out = fold == f
-        scores[out] = xs[out] @ current + bias
-        total[:] += current
-        total_bias[:] += bias
-
+    k_classes, k = len(positives), int(fold.max()) + 1
+    keep = [fold != f for f in range(k)]
+    _WORK.update(x=x, seed=seed, cap=row_cap(k_classes), positives=positives, negatives=negatives,
+                 keep=keep, pools=[np.flatnonzero(m) for m in keep])
+    held = [np.flatnonzero(fold == f) for f in range(k)]
+    held_x = [x[rows].astype(np.float32) for rows in held]
     workers = _workers()
-    pool = multiprocessing.get_context("fork").Pool(workers) if workers > 1 and len(tasks) > 50 else None
+    pool = multiprocessing.get_context("fork").Pool(workers) if workers > 1 and k_classes * k > 50 else None
     try:
-        done = pool.imap(_fit_task, tasks, chunksize=16) if pool is not None else map(_fit_task, tasks)
-        for f, j, (used, coef, b) in progress_bar(done, total=len(tasks), desc="class fits",
-                                                  enabled=progress):
-            current[used, j] = coef
-            bias[j] = b
-            if j == k_classes - 1:
-                finish(f)
-                current[:] = 0.0
+        done = pool.imap(_fit_task, range(k_classes), chunksize=4) if pool is not None \
+            else map(_fit_task, range(k_classes))
+        start, pending = 0, []
+        for fits in progress_bar(done, total=k_classes, desc="class fits", enabled=progress):
+            pending.append(fits)
+            if len(pending) == width or start + len(pending) == k_classes:
+                yield _score(start, pending, held, held_x)
+                start, pending = start + len(pending), []
     finally:
         if pool is not None:
             pool.terminate()
         _WORK.clear()
-    return scores, total, total_bias
+
+
+def _score(start: int, fits: Sequence[Sequence[Fit]], held: Sequence[np.ndarray],
+           held_x: Sequence[sparse.csr_matrix]) -> Chunk:
+    """Each fold's model scores its own held-out members and joins the sum, fold after fold."""
+    n, size, width = sum(len(h) for h in held), held_x[0].shape[1], len(fits)
+    scores = np.zeros((n, width), dtype=np.float32)
+    total = np.zeros((size, width), dtype=np.float32)
+    total_bias = np.zeros(width, dtype=np.float32)
+    for f, (rows, xf) in enumerate(zip(held, held_x)):
+        current = np.zeros((size, width), dtype=np.float32)
+        bias = np.zeros(width, dtype=np.float32)
+        for i, per_fold in enumerate(fits):
+            used, coef, b = per_fold[f]
+            current[used, i] = coef
+            bias[i] = b
+        scores[rows] = xf @ current + bias
+        total += current
+        total_bias += bias
+    return Chunk(start, scores, total, total_bias)
 
 
 def _histograms(scores: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -230,7 +279,9 @@ def platt(centres: np.ndarray, pos: np.ndarray, neg: np.ndarray, iterations: int
     """Per class (a, b) with p = sigmoid(a * score + b), by Newton steps on binned scores.
 
     Targets use Platt's own smoothing ((N+ + 1)/(N+ + 2), 1/(N- + 2)) so separable classes
-    keep a finite slope.
+    keep a finite slope. Each class stops at its own first step under 1e-5, so a class's
+    parameters do not depend on which classes are fitted beside it (training fits them a
+    chunk of classes at a time).
     """
     k = len(centres)
     n_pos, n_neg = pos.sum(1, keepdims=True), neg.sum(1, keepdims=True)
@@ -239,21 +290,24 @@ def platt(centres: np.ndarray, pos: np.ndarray, neg: np.ndarray, iterations: int
     target = np.where(weight > 0, (pos * hi_t + neg * lo_t) / np.maximum(weight, 1), 0.0)
     ab = np.zeros((k, 2))
     ab[:, 1] = np.log((n_pos[:, 0] + 1) / (n_neg[:, 0] + 1))
+    active = np.arange(k)
     for _ in range(iterations):
-        z = ab[:, :1] * centres + ab[:, 1:]
+        if not len(active):
+            break
+        c, wt = centres[active], weight[active]
+        z = ab[active, :1] * c + ab[active, 1:]
         p = 1 / (1 + np.exp(-np.clip(z, -50, 50)))
-        g = weight * (p - target)
-        h = weight * p * (1 - p) + 1e-9
-        ga, gb = (g * centres).sum(1), g.sum(1)
-        haa, hab, hbb = (h * centres ** 2).sum(1), (h * centres).sum(1), h.sum(1) + 1e-6
+        g = wt * (p - target[active])
+        h = wt * p * (1 - p) + 1e-9
+        ga, gb = (g * c).sum(1), g.sum(1)
+        haa, hab, hbb = (h * c ** 2).sum(1), (h * c).sum(1), h.sum(1) + 1e-6
         det = haa * hbb - hab ** 2
         det = np.where(np.abs(det) < 1e-12, 1e-12, det)
         step_a = (hbb * ga - hab * gb) / det
         step_b = (haa * gb - hab * ga) / det
-        ab[:, 0] -= step_a
-        ab[:, 1] -= step_b
-        if max(np.abs(step_a).max(), np.abs(step_b).max()) < 1e-5:
-            break
+        ab[active, 0] -= step_a
+        ab[active, 1] -= step_b
+        active = active[np.maximum(np.abs(step_a), np.abs(step_b)) >= 1e-5]
     return ab.astype(np.float32)
 
 
@@ -298,17 +352,28 @@ def _wrap(enabled: bool | None, desc: str, total: int) -> Any:
     return wrap
 
 
-def sparse_rows(probs: np.ndarray, floor: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """CSR (pointers, class indices, probabilities as float16) of the entries above `floor`."""
-    rows, cols = np.nonzero(probs > floor)
-    ptr = np.zeros(len(probs) + 1, dtype=np.int64)
-    np.cumsum(np.bincount(rows, minlength=len(probs)), out=ptr[1:])
-    return ptr, cols.astype(np.int32), probs[rows, cols].astype(np.float16)
+def sparse_rows(parts: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray]],
+                shape: tuple[int, int]) -> sparse.csr_matrix:
+    """One (members, classes) CSR matrix of the (rows, class columns, values) of each chunk."""
+    rows = np.concatenate([p[0] for p in parts]).astype(np.int32)
+    # Each chunk's entries come row by row, chunks in class order: a stable sort by row
+    # leaves each row's classes ascending.
+    order = np.argsort(rows, kind="stable")
+    cols = np.concatenate([p[1] for p in parts]).astype(np.int32)[order]
+    values = np.concatenate([p[2] for p in parts])[order]
+    ptr = np.zeros(shape[0] + 1, dtype=np.int64)
+    np.cumsum(np.bincount(rows, minlength=shape[0]), out=ptr[1:])
+    return sparse.csr_matrix((values, cols, ptr), shape=shape)
 
 
 def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[str] = (),
-          revision: str = "", progress: bool | None = False) -> Model | None:
-    """Train on `ontology` without the terms in `exclude`; None when no class can be learned."""
+          revision: str = "", progress: bool | None = False, *,
+          classes_per_chunk: int | None = None) -> Model | None:
+    """Train on `ontology` without the terms in `exclude`; None when no class can be learned.
+
+    The classes are fitted, scored and calibrated `classes_per_chunk` at a time (default: as
+    many as keep SCORE_CELLS out-of-fold scores); the model does not depend on it.
+    """
     settings = config.model
     excluded = sorted(set(exclude))
     candidates = members_of(ontology, config, excluded)
@@ -319,23 +384,44 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
     classes = eligible_classes(members, ontology, settings)
     if not classes:
         return None
+    n, n_classes = len(members), len(classes)
     x = features(kept, settings.size)
     y = labels(members, classes)
+    positives = columns(y)
     k = max(2, settings.folds)
     rng = np.random.default_rng(settings.seed)
-    fold = (rng.permutation(len(members)) % k).astype(np.int16)
-    hard = hard_negatives(members, classes, ontology)
-    scores, total, total_bias = fold_fits(x, y, fold, hard, settings.seed, progress)
-    calib, thresholds, low, high, probs = calibrate(scores, y)
+    fold = (rng.permutation(n) % k).astype(np.int16)
+    weights = np.zeros((settings.size, n_classes), dtype=np.float16)
+    bias = np.zeros(n_classes, dtype=np.float32)
+    calib = np.zeros((n_classes, 2), dtype=np.float32)
+    thresholds, low, high = (np.zeros(n_classes, dtype=np.float32) for _ in range(3))
+    oof: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
+    width = classes_per_chunk or chunk_width(n, n_classes)
+    for chunk in fold_fits(x, positives, Negatives(members, classes, ontology), fold, settings.seed,
+                           width, progress):
+        span = slice(chunk.start, chunk.start + chunk.scores.shape[1])
+        truth = np.zeros(chunk.scores.shape, dtype=np.int8)
+        for i, rows in enumerate(positives[span]):
+            truth[rows, i] = 1
+        calib[span], thresholds[span], low[span], high[span], probs = calibrate(chunk.scores, truth)
+        # The model for terms outside training is the mean of the fold models: no extra fit,
+        # and its scores keep the scale the out-of-fold Platt parameters were fitted on.
+        weights[:, span] = (chunk.total / k).astype(np.float16)
+        bias[span] = chunk.total_bias / k
+        # Only the out-of-fold probabilities above the floor are kept (as stored, but float32:
+        # the figures below are measured on them, and no decision reads one at the floor).
+        rows, cols = np.nonzero(probs > OOF_FLOOR)
+        oof.append((rows.astype(np.int32), cols + chunk.start, probs[rows, cols]))
+        del chunk, probs, truth
     del x
-    del scores
+    oof_probs = sparse_rows(oof, (n, n_classes))
+    del oof
     ancestors, disjoint = hierarchy_of(ontology, classes)
-    oof_ptr, oof_class, oof_prob = sparse_rows(probs, OOF_FLOOR)
     meta: dict[str, Any] = {
         "format": FORMAT, "classes": classes, "settings": asdict(settings), "revision": revision,
         "blobs": {s.path: s.blob for s in ontology.snapshots},
         "excluded": excluded,
-        "estimator": (f"linear SVM per class (C={SVM_C}) on up to {row_cap(len(classes))} members, as many of "
+        "estimator": (f"linear SVM per class (C={SVM_C}) on up to {row_cap(n_classes)} members, as many of "
                       f"its parents' other members and as many others; mean of {k} fold models, + Platt"),
         "ancestors": {c: sorted(a) for c, a in ancestors.items()},
         "disjoint": [list(p) for p in disjoint],
@@ -343,54 +429,65 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
     indptr = np.zeros(len(kept) + 1, dtype=np.int64)
     np.cumsum([len(b) for b in kept], out=indptr[1:])
     flat = np.concatenate(kept)
-    # The model for terms outside training is the mean of the fold models: no extra fit, and
-    # its scores keep the scale the out-of-fold Platt parameters were fitted on.
-    arrays: dict[str, np.ndarray] = {"weights": (total / k).astype(np.float16), "bias": (total_bias / k).astype(np.float32),
+    arrays: dict[str, np.ndarray] = {"weights": weights, "bias": bias,
               "platt": calib, "thresholds": thresholds, "low": low, "high": high, "ref_fold": fold,
-              "oof_ptr": oof_ptr, "oof_class": oof_class, "oof_prob": oof_prob,
+              "oof_ptr": oof_probs.indptr.astype(np.int64), "oof_class": oof_probs.indices.astype(np.int32),
+              "oof_prob": oof_probs.data.astype(np.float16),
               "member_hash": np.array([bits_hash(b) for b in kept], dtype=np.uint64),
               "member_ids": np.array([m.id.encode() for m in members], dtype=np.bytes_),
               "digests": np.array([m.digest.encode() for m in members], dtype=np.bytes_),
               **Neighbours.index(indptr, flat, settings.size)}
     model = Model(arrays, meta)
-    figures, summary = evaluate_out_of_fold(model, kept, fold, probs, y)
+    figures, summary = evaluate_out_of_fold(model, kept, fold, oof_probs, y)
     model.meta["figures"] = {c: list(f) for c, f in figures.items()}
     model.meta["summary"] = summary
     return Model(arrays, model.meta)
 
 
-def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndarray, probs: np.ndarray,
-                         y: np.ndarray) -> tuple[dict[str, ClassFigures], dict[str, Any]]:
-    """k-fold figures per class, with abstention and the ontology's consistency applied."""
+def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndarray,
+                         probs: sparse.csr_matrix, y: sparse.csr_matrix,
+                         cells: int = 4_000_000) -> tuple[dict[str, ClassFigures], dict[str, Any]]:
+    """k-fold figures per class, with abstention and the ontology's consistency applied.
+
+    `probs` and `y` are sparse (members, classes) out-of-fold probabilities and memberships;
+    the decisions are made on dense runs of about `cells` (member, class) pairs.
+    """
     # The neighbour search grows with members squared: past EVAL_SAMPLE members, similarity
     # (hence abstention) is measured on a fixed random sample and the rest count as judged.
     sims = np.ones(len(bits), dtype=np.float32)
     sample = np.arange(len(bits))
     if len(bits) > EVAL_SAMPLE:
         sample = np.sort(np.random.default_rng(0).choice(len(bits), EVAL_SAMPLE, replace=False))
+    # A query's candidate members grow with the members: queries at a time are kept near
+    # 4M / members, 20 at 200k (256 at once took 856 MB there, and longer than 20 at once).
     _, sims[sample] = model.neighbours().nearest([bits[i] for i in sample.tolist()],
-                                                 fold[sample].astype(np.int64))
-    k = len(model.classes)
-    predicted = np.zeros(y.shape, dtype=bool)
-    abstained = np.zeros(len(y), dtype=bool)
-    for start in range(0, len(y), 4096):
-        part = slice(start, min(start + 4096, len(y)))
-        decided = model.decisions(probs[part], sims[part])
-        predicted[part] = decided.closed[:, :k]
+                                                 fold[sample].astype(np.int64),
+                                                 chunk=max(8, min(256, 4_000_000 // max(len(bits), 1))))
+    n, k = y.shape
+    abstained = np.zeros(n, dtype=bool)
+    tp, fp, fn, tp_t, fn_t, n_doubted, members = (np.zeros(k, dtype=np.int64) for _ in range(7))
+    step = max(1, min(4096, cells // max(k, 1)))
+    for start in range(0, n, step):
+        part = slice(start, min(start + step, n))
+        dense = probs[part].toarray()
+        decided = model.decisions(dense, sims[part])
         abstained[part] = decided.abstains
-    judged = ~abstained
-    yt, yp = y[judged].astype(bool), predicted[judged]
-    tp = (yt & yp).sum(0).astype(float)
-    fp = (~yt & yp).sum(0).astype(float)
-    fn = (yt & ~yp).sum(0).astype(float)
-    # Trust: the same F1 with the members whose filing the model confidently contradicts
-    # (probability at or below the class's `low`, what the review reports) set aside, while
-    # they are at most half of the class. Misfiled members lower the plain F1 of exactly the
-    # classes they were put in, so the plain F1 would silence the model where it is needed.
-    doubted = yt & (probs[judged] <= model.arrays["low"])
-    n_doubted, members = doubted.sum(0), yt.sum(0)
-    tp_t = (yt & yp & ~doubted).sum(0).astype(float)
-    fn_t = (yt & ~yp & ~doubted).sum(0).astype(float)
+        judged = ~decided.abstains
+        yt, yp = y[part].toarray()[judged].astype(bool), decided.closed[judged, :k]
+        tp += (yt & yp).sum(0)
+        fp += (~yt & yp).sum(0)
+        fn += (yt & ~yp).sum(0)
+        # Trust: the same F1 with the members whose filing the model confidently contradicts
+        # (probability at or below the class's `low`, what the review reports) set aside,
+        # while they are at most half of the class. Misfiled members lower the plain F1 of
+        # exactly the classes they were put in, so the plain F1 would silence the model where
+        # it is needed. (A probability left out of the sparse rows is below every `low`.)
+        doubted = yt & (dense[judged] <= model.arrays["low"])
+        n_doubted += doubted.sum(0)
+        members += yt.sum(0)
+        tp_t += (yt & yp & ~doubted).sum(0)
+        fn_t += (yt & ~yp & ~doubted).sum(0)
+    support = np.diff(sparse.csc_matrix(y).indptr)
     figures = {}
     for j, cls in enumerate(model.classes):
         p = tp[j] / (tp[j] + fp[j]) if tp[j] + fp[j] else 0.0
@@ -398,13 +495,13 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
         f1 = 2 * p * r / (p + r) if p + r else 0.0
         trust = f1
         if 0 < n_doubted[j] <= members[j] / 2:
-            trust = 2 * tp_t[j] / max(2 * tp_t[j] + fp[j] + fn_t[j], 1.0)
-        figures[cls] = ClassFigures(round(p, 4), round(r, 4), round(f1, 4), int(y[:, j].sum()),
+            trust = 2 * tp_t[j] / max(2 * tp_t[j] + fp[j] + fn_t[j], 1)
+        figures[cls] = ClassFigures(round(p, 4), round(r, 4), round(f1, 4), int(support[j]),
                                     round(float(max(trust, f1)), 4))
     micro_p = tp.sum() / max(tp.sum() + fp.sum(), 1)
     micro_r = tp.sum() / max(tp.sum() + fn.sum(), 1)
-    summary = {"members": len(y), "folds": int(fold.max()) + 1 if len(fold) else 0,
-               "abstention": round(float(abstained[sample].mean()), 4) if len(y) else 0.0,
+    summary = {"members": n, "folds": int(fold.max()) + 1 if len(fold) else 0,
+               "abstention": round(float(abstained[sample].mean()), 4) if n else 0.0,
                "abstention_measured_on": len(sample),
                "micro_f1": round(float(2 * micro_p * micro_r / max(micro_p + micro_r, 1e-12)), 4),
                "macro_f1": round(float(np.mean([f.f1 for f in figures.values()])), 4)}
