@@ -475,10 +475,17 @@ def search_order(patterns: Sequence[Pattern]) -> tuple[list[int], list[tuple[int
     that it implies: when one of those does not match, neither does the pattern.
 
     Patterns that others imply come first (ties in index order)."""
-    count = len(patterns)
+    order, before = _search_order(tuple(p.text for p in patterns))
+    return list(order), list(before)
+
+
+# A review matches the same rules at its base and at its head: the proofs are made once.
+@functools.lru_cache(maxsize=4)
+def _search_order(texts: tuple[str, ...]) -> tuple[tuple[int, ...], tuple[tuple[int, ...], ...]]:
+    count = len(texts)
     implied: list[list[int]] = [[] for _ in range(count)]
     if 1 < count <= _MAX_IMPLIED:
-        shapes = [_shape(p.text) for p in patterns]
+        shapes = [_shape(t) for t in texts]
         for i, mine in enumerate(shapes):
             if mine is None:
                 continue
@@ -488,7 +495,7 @@ def search_order(patterns: Sequence[Pattern]) -> tuple[list[int], list[tuple[int
             implied[i] = [j for j, theirs in enumerate(shapes) if i != j and theirs is not None
                           and len(theirs.atoms) <= len(mine.atoms)
                           and mine.atoms[0].keys <= theirs.atoms[0].keys
-                          and implies(patterns[i], patterns[j])]
+                          and _implies(texts[i], texts[j])]
     # Kahn's algorithm over "j before i when i implies j"; of two equivalent patterns the
     # later one waits for the earlier.
     waits = [[j for j in implied[i] if not (i in implied[j] and i < j)] for i in range(count)]
@@ -510,8 +517,7 @@ def search_order(patterns: Sequence[Pattern]) -> tuple[list[int], list[tuple[int
     # A cycle of one-way proofs (each pattern then equivalent to the others) waits for nothing.
     order += [i for i in range(count) if waiting_on[i]]
     position = {p: k for k, p in enumerate(order)}
-    before = [tuple(j for j in implied[i] if position[j] < position[i]) for i in range(count)]
-    return order, before
+    return tuple(order), tuple(tuple(j for j in implied[i] if position[j] < position[i]) for i in range(count))
 
 
 # -- patterns ---------------------------------------------------------------------------------
@@ -533,7 +539,16 @@ class Pattern:
 
 def compile_smarts(text: str) -> Pattern:
     """Compile one SMARTS; a bad one raises ParentageError with RDKit's reason."""
-    if not isinstance(text, str) or not text.strip():
+    if not isinstance(text, str):
+        raise ParentageError("empty SMARTS")
+    return _compiled(text)
+
+
+# Patterns are never changed once made: a rule file's SMARTS, checked when the file is read,
+# are compiled once for the rules that use them and for both ends of a review.
+@functools.lru_cache(maxsize=4096)
+def _compiled(text: str) -> Pattern:
+    if not text.strip():
         raise ParentageError("empty SMARTS")
     with captured_log() as log:
         query = Chem.MolFromSmarts(text)

@@ -560,9 +560,6 @@ class Model:
             self._up_ptr[j + 1] = len(cols)
         self._up_cols = np.array(cols, dtype=np.int64)
         self._up_owner = np.repeat(np.arange(k), np.diff(self._up_ptr))
-        strict = [(pos[c], pos[a]) for c, anc in self._ancestors.items() for a in anc]
-        self._strict_child = np.array([s[0] for s in strict], dtype=np.int64)
-        self._strict_parent = np.array([s[1] for s in strict], dtype=np.int64)
         self._disjoint_pos = [(pos[a], pos[b]) for a, b in self._disjoint if a in pos and b in pos]
 
     # -- staleness ----------------------------------------------------------------------------
