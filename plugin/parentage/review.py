@@ -118,6 +118,22 @@ def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
     return out
 
 
+def read_both_ends(ws: Workspace, ends: Iterable[tuple[Ontology, Iterable[str]]]) -> None:
+    """Read the structures of the listed terms at every end in one batch: one worker process
+    instead of one per end (chem/bounded.py). The facts land in the store, where
+    `structure_side` finds them."""
+    from parentage.chem.molecules import analyse_many
+    from parentage.tiers.structure import structure_texts
+
+    wanted: dict[str, list[str]] = {}
+    for ontology, ids in ends:
+        for kind, texts in structure_texts(ontology, ids, ws.config).items():
+            wanted.setdefault(kind, []).extend(texts)
+    for kind, texts in wanted.items():
+        if texts:
+            analyse_many(texts, ws.config.limits, ws.store, kind)
+
+
 def structure_changed(changes: ChangeSet) -> list[str]:
     """Added terms and edits that touched structure fields: the only ones RDKit must read."""
     return list(changes.added) + [t for t in changes.edited if "structure" in changes.fields.get(t, ())]
@@ -150,6 +166,7 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
     # shows as persisting); members re-checked only because a class changed are not re-read.
     touched = set(changes.added) | set(changes.edited)
     read = [t for t in affected if t in touched]
+    read_both_ends(ws, [(head, read), (base, read)])
     head_findings = structure_side(ws, head, affected, others, read)
     base_findings = structure_side(ws, base, base_ids, others, read)
 

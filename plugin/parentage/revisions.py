@@ -79,6 +79,9 @@ def match_glob(pattern: str, path: str) -> bool:
     return bool(_glob_regex(pattern).match(path))
 
 
+SMALL_BLOB = 1 << 20  # blobs up to this size are kept for the run once read
+
+
 class GitFailed(ParentageError):
     pass
 
@@ -103,20 +106,21 @@ class Repository:
         if not os.path.isdir(start):
             raise ParentageError(f"{os.path.abspath(start)}: not inside a git repository; run "
                                  "parentage from the ontology's repository")
+        self._trees: dict[str, dict[str, str]] = {}  # commit -> path -> blob sha
+        self._small_blobs: dict[str, bytes] = {}  # rule files and configs, read at both ends
+        # One git call in a checkout; a second only to say why when the first fails.
+        found = _run_git(["rev-parse", "--is-bare-repository", "--absolute-git-dir", "--show-toplevel"], start)
+        lines = found.stdout.decode("utf-8", "surrogateescape").split("\n")
+        if found.returncode == 0 and len(lines) >= 3 and lines[0].strip() == "false":
+            self.git_dir, self.root = lines[1].strip(), lines[2].strip()
+            return
         found = _run_git(["rev-parse", "--is-bare-repository", "--absolute-git-dir"], start)
         if found.returncode != 0:
             raise ParentageError(f"{os.path.abspath(start)}: not inside a git repository; run "
                                  "parentage from the ontology's repository")
-        bare, git_dir = found.stdout.decode("utf-8", "surrogateescape").split("\n")[:2]
-        if bare.strip() == "true":
-            raise ParentageError(f"{git_dir}: a bare repository has no work tree; run "
-                                 "parentage in a checkout")
-        top = _run_git(["rev-parse", "--show-toplevel"], start)
-        if top.returncode != 0:
-            raise ParentageError(f"{git_dir}: a bare repository has no work tree; run "
-                                 "parentage in a checkout")
-        self.root = top.stdout.decode("utf-8", "surrogateescape").strip()
-        self.git_dir = git_dir.strip()
+        git_dir = found.stdout.decode("utf-8", "surrogateescape").split("\n")[1]
+        raise ParentageError(f"{git_dir.strip()}: a bare repository has no work tree; run "
+                             "parentage in a checkout")
 
     def git(self, *args: str) -> str:
         """Run git in the work tree; its standard output, or a one-line error."""
@@ -183,13 +187,25 @@ class Repository:
         if side.kind == EMPTY:
             return []
         if side.kind == "commit" and side.commit is not None:
-            out = self.git("ls-tree", "-r", "--name-only", "-z", side.commit)
-        else:
-            out = self.git("ls-files", "-z")
+            return list(self._tree(side.commit))
+        out = self.git("ls-files", "-z")
         paths = [p for p in out.split("\0") if p]
         if side.kind == WORKTREE:
             paths = [p for p in paths if os.path.isfile(os.path.join(self.root, p))]
         return paths
+
+    def _tree(self, commit: str) -> dict[str, str]:
+        """Path -> object sha of every entry of a commit's tree, listed once per run (a review
+        asks for its ontologies and its rule files at both ends)."""
+        found = self._trees.get(commit)
+        if found is None:
+            found = {}
+            for entry in self.git("ls-tree", "-r", "-z", commit).split("\0"):
+                meta, _, path = entry.partition("\t")
+                if path:
+                    found[path] = meta.split()[2]  # "<mode> <type> <sha>"
+            self._trees[commit] = found
+        return found
 
     def matching(self, side: Side, patterns: tuple[str, ...]) -> list[str]:
         return [p for p in self.list_files(side) if any(match_glob(g, p) for g in patterns)]
@@ -214,13 +230,23 @@ class Repository:
                 return FileVersion(path, None, None)
             sha = line.split()[1]
         else:
-            sha = self._quiet("rev-parse", "--verify", "--quiet", f"{side.commit}:{path}")
-            if not sha.strip():
+            assert side.commit is not None
+            sha = self._tree(side.commit).get(path, "")
+            if not sha:
                 return FileVersion(path, None, None)
         sha = sha.strip()
         return FileVersion(path, sha, None if sha_only else self.blob_bytes(sha))
 
     def blob_bytes(self, sha: str) -> bytes:
+        small = self._small_blobs.get(sha)
+        if small is not None:
+            return small
+        data = self._blob_bytes(sha)
+        if len(data) <= SMALL_BLOB:
+            self._small_blobs[sha] = data
+        return data
+
+    def _blob_bytes(self, sha: str) -> bytes:
         # One read of the whole pipe: `communicate` polls in 32 KB steps, which took ~4x
         # longer on a 30 MB ontology. cat-file writes nothing else to stderr, so reading
         # stdout to the end first cannot block.

@@ -14,7 +14,14 @@ from parentage.changes import affected_terms, diff_ontologies
 from parentage.commands.common import emit, files_not_ranges, open_workspace, parser
 from parentage.findings import compare, with_severity
 from parentage.report import text as text_report
-from parentage.review import IndexWithout, is_structured, key_index, structure_changed, structure_side
+from parentage.review import (
+    IndexWithout,
+    is_structured,
+    key_index,
+    read_both_ends,
+    structure_changed,
+    structure_side,
+)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -44,6 +51,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         others: Mapping[str, tuple[str, ...]] = {}
         if base.snapshots and read:
             others = IndexWithout(key_index(ws, base), changed | set(ids))
+        read_both_ends(ws, [(head, read), (base, read)])
         head_findings = structure_side(ws, head, ids, others, read)
         base_ids = [t for t in ids if t in base.terms and not base.terms[t].obsolete]
         base_findings = structure_side(ws, base, base_ids, others, read) if base.snapshots else []

@@ -26,16 +26,22 @@ def _source(structure: Structure) -> tuple[str, str] | None:
     return None
 
 
-def structure_facts(ontology: Ontology, term_ids: Iterable[str], config: Config,
-                    store: Store | None = None) -> dict[str, MolFacts]:
-    """`MolFacts` for the structure of each listed live term, keyed by the text as written."""
+def structure_texts(ontology: Ontology, term_ids: Iterable[str], config: Config) -> dict[str, list[str]]:
+    """The structure text each listed live term is read from, by kind (SMILES, or InChI
+    where a term gives no SMILES)."""
     wanted: dict[str, list[str]] = {"smiles": [], "inchi": []}
     for term in _live(ontology, term_ids):
         source = _source(read_structure(term, config.structure))
         if source is not None:
             wanted[source[0]].append(source[1])
+    return wanted
+
+
+def structure_facts(ontology: Ontology, term_ids: Iterable[str], config: Config,
+                    store: Store | None = None) -> dict[str, MolFacts]:
+    """`MolFacts` for the structure of each listed live term, keyed by the text as written."""
     facts: dict[str, MolFacts] = {}
-    for kind, texts in wanted.items():
+    for kind, texts in structure_texts(ontology, term_ids, config).items():
         facts.update(analyse_many(texts, config.limits, store, kind))
     return facts
 
