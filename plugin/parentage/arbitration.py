@@ -105,19 +105,15 @@ def arbitrate(ontology: Ontology, tid: str, rule_verdicts: Iterable[Verdict],
         rule, guess = rules.get(cls), model.get(cls)
         if rule is not None:
             continue
+        where = ""
         if guess is None or guess.opinion != "opposes":
             guess = _against_ancestor(ontology, cls, rules, model)
             if guess is None:
                 continue
-            finding("parent-unsupported", (cls,), ("model",),
-                    f"is filed under {_name(ontology, cls)}, but no rule supports it and the "
-                    f"model is confident it does not belong to its ancestor {_name(ontology, guess.cls)} "
-                    f"(p={guess.evidence.get('probability', 0):.2f})",
-                    _evidence(model=guess))
-            continue
+            where = f" to its ancestor {_name(ontology, guess.cls)}"
         finding("parent-unsupported", (cls,), ("model",),
                 f"is filed under {_name(ontology, cls)}, but no rule supports it and the "
-                f"model is confident it does not belong "
+                f"model is confident it does not belong{where} "
                 f"(p={guess.evidence.get('probability', 0):.2f})",
                 _evidence(model=guess))
     for cls in sorted(set(rules) & set(model)):
