@@ -8,7 +8,7 @@ from __future__ import annotations
 import hashlib
 import json
 from collections.abc import Callable, Iterable, Iterator, Mapping
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from parentage.arbitration import arbitrate, disjoint_findings
 from parentage.changes import ChangeSet, affected_terms, diff_ontologies
@@ -17,6 +17,9 @@ from parentage.findings import Finding, Review, compare, with_severity
 from parentage.revisions import Side
 from parentage.snapshot import Ontology, Term, read_structure
 from parentage.workspace import Workspace
+
+if TYPE_CHECKING:
+    from parentage.chem.molecules import MolFacts
 
 
 def smiles_of(term: Term, config: Config) -> str | None:
@@ -97,11 +100,13 @@ class IndexWithout(Mapping[str, tuple[str, ...]]):
 
 
 def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
-                   others: Mapping[str, tuple[str, ...]], read: Iterable[str] | None = None) -> list[Finding]:
+                   others: Mapping[str, tuple[str, ...]], read: Iterable[str] | None = None,
+                   facts: Mapping[str, MolFacts] | None = None) -> list[Finding]:
     """Structure, hierarchy and disjointness findings of `term_ids`.
 
     Structures are read (RDKit) only for the ids in `read` (default: all of `term_ids`); the
-    hierarchy checks need none, so a change that only moves classes never loads RDKit.
+    hierarchy checks need none, so a change that only moves classes never loads RDKit. `facts`
+    (from `read_both_ends`) holds structures already read.
     """
     from parentage.tiers.hierarchy import hierarchy_findings
 
@@ -111,17 +116,17 @@ def structure_side(ws: Workspace, ontology: Ontology, term_ids: list[str],
     if any(structured_term(ontology.terms[t], ws.config) for t in wanted):
         from parentage.tiers.structure import structure_facts, structure_findings
 
-        facts = structure_facts(ontology, wanted, ws.config, ws.store)
+        if facts is None:
+            facts = structure_facts(ontology, wanted, ws.config, ws.store)
         out += structure_findings(ontology, wanted, ws.config, facts, others)
     out += hierarchy_findings(ontology, present)
     out += disjoint_findings(ontology, present)
     return out
 
 
-def read_both_ends(ws: Workspace, ends: Iterable[tuple[Ontology, Iterable[str]]]) -> None:
-    """Read the structures of the listed terms at every end in one batch: one worker process
-    instead of one per end (chem/bounded.py). The facts land in the store, where
-    `structure_side` finds them."""
+def read_both_ends(ws: Workspace, ends: Iterable[tuple[Ontology, Iterable[str]]]) -> dict[str, MolFacts]:
+    """Facts of the structures of the listed terms at every end, keyed by the text as written,
+    read in one batch: one worker process instead of one per end (chem/bounded.py)."""
     from parentage.chem.molecules import analyse_many
     from parentage.tiers.structure import structure_texts
 
@@ -129,9 +134,11 @@ def read_both_ends(ws: Workspace, ends: Iterable[tuple[Ontology, Iterable[str]]]
     for ontology, ids in ends:
         for kind, texts in structure_texts(ontology, ids, ws.config).items():
             wanted.setdefault(kind, []).extend(texts)
+    facts: dict[str, MolFacts] = {}
     for kind, texts in wanted.items():
         if texts:
-            analyse_many(texts, ws.config.limits, ws.store, kind)
+            facts.update(analyse_many(texts, ws.config.limits, ws.store, kind))
+    return facts
 
 
 def structure_changed(changes: ChangeSet) -> list[str]:
@@ -166,9 +173,9 @@ def run_review(ws: Workspace, base_side: Side, head_side: Side, files: Iterable[
     # shows as persisting); members re-checked only because a class changed are not re-read.
     touched = set(changes.added) | set(changes.edited)
     read = [t for t in affected if t in touched]
-    read_both_ends(ws, [(head, read), (base, read)])
-    head_findings = structure_side(ws, head, affected, others, read)
-    base_findings = structure_side(ws, base, base_ids, others, read)
+    facts = read_both_ends(ws, [(head, read), (base, read)])
+    head_findings = structure_side(ws, head, affected, others, read, facts)
+    base_findings = structure_side(ws, base, base_ids, others, read, facts)
 
     # Rule and model tiers on the structured affected terms, with one model for both ends.
     structured = is_structured(config)

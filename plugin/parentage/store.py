@@ -28,10 +28,12 @@ from parentage.errors import ParentageError
 # old cache is never read with a new layout even within one release.
 LAYOUT = 7
 # Values of at least this many bytes are written and read through SQLite's incremental blob
-# I/O (Python 3.11+), never as one bound parameter or one fetched row: storing a 157 MB model
+# I/O (Python 3.11+), never as one bound parameter or one fetched row: storing a 157 MB value
 # as a parameter raised the peak memory by three times its size (our encoding byte put in front
 # of a copy, SQLite's own copy of the parameter, the record it builds), and reading it back
-# held the fetched row and the value sliced from it.
+# held the fetched row and the value sliced from it. (Models, the largest values, are files
+# beside the database, see `put_file`; this path keeps large snapshots and an in-memory
+# store's models lean.)
 BLOB_IO_MIN = 1 << 24
 
 _SCHEMA = """

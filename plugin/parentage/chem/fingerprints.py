@@ -67,26 +67,26 @@ def fingerprint_bits(smiles: Sequence[str], settings: ModelSettings, limits: Lim
     generator = _generator(settings)
     out: list[Bits | None] = [None] * len(smiles)
     if len(smiles) >= bounded.SPLIT_AT:
-        _GENERATOR[0] = generator  # made before the fork, so each worker inherits it
-        read = partial(_bits_row, limits=limits)
+        # Forked workers inherit the generator; each sends its bits back as a list.
+        read = partial(_bits_list, generator=generator, limits=limits)
         results: Iterable[Any] = bounded.bounded_map(read, smiles, limits.parse_seconds)
         for index, row, _why in (wrap(results) if wrap is not None else results):
             out[index] = None if row is None else np.array(row, dtype=np.uint32)
         return out
-    with captured_log():
-        for index, text in enumerate(wrap(smiles) if wrap is not None else smiles):
-            mol, error, _ = parse_smiles(text, limits)
-            out[index] = None if mol is None or error else _bits_of(generator, mol)
+    for index, text in enumerate(wrap(smiles) if wrap is not None else smiles):
+        out[index] = _bits_or_none(text, generator, limits)
     return out
 
 
-_GENERATOR: list[Any] = [None]  # the generator a forked worker uses
-
-
-def _bits_row(text: str, limits: Limits) -> list[int] | None:
+def _bits_or_none(text: str, generator: Any, limits: Limits) -> Bits | None:
     with captured_log():
         mol, error, _ = parse_smiles(text, limits)
-        return None if mol is None or error else _bits_of(_GENERATOR[0], mol).tolist()
+        return None if mol is None or error else _bits_of(generator, mol)
+
+
+def _bits_list(text: str, generator: Any, limits: Limits) -> list[int] | None:
+    bits = _bits_or_none(text, generator, limits)
+    return None if bits is None else bits.tolist()
 
 
 def _key(smiles: str) -> str:

@@ -51,10 +51,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         others: Mapping[str, tuple[str, ...]] = {}
         if base.snapshots and read:
             others = IndexWithout(key_index(ws, base), changed | set(ids))
-        read_both_ends(ws, [(head, read), (base, read)])
-        head_findings = structure_side(ws, head, ids, others, read)
+        facts = read_both_ends(ws, [(head, read), (base, read)])
+        head_findings = structure_side(ws, head, ids, others, read, facts)
         base_ids = [t for t in ids if t in base.terms and not base.terms[t].obsolete]
-        base_findings = structure_side(ws, base, base_ids, others, read) if base.snapshots else []
+        base_findings = structure_side(ws, base, base_ids, others, read, facts) if base.snapshots else []
         findings = [f for f in with_severity(compare(base_findings, head_findings), ws.config.severity)
                     if f.status != "resolved"]
     finally:
