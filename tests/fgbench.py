@@ -130,6 +130,67 @@ def split(seed: int = 0, test_fraction: float = 0.2) -> tuple[list[Molecule], li
     return mols[:cut], mols[cut:]
 
 
+def inject(mols: list[Molecule], seed: int = 1) -> tuple[dict[str, tuple[str, ...]], dict[str, str], dict[str, str]]:
+    """Curation errors for the injected-error benchmark: (is_a lists to use, missing, wrong).
+
+    5% of the members lose one of their most specific true classes (filed under its parent
+    instead: `missing[term]` is the class lost), another 5% gain a wrong class, drawn from
+    every group of the hierarchy that is neither a true class nor an ancestor of one
+    (`wrong[term]`).
+    """
+    rng = random.Random(seed)
+    parent_of = {g.id: g.parent for g in groups()}
+    parents: dict[str, tuple[str, ...]] = {}
+    missing: dict[str, str] = {}
+    wrong: dict[str, str] = {}
+    order = list(mols)
+    rng.shuffle(order)
+    cut = len(mols) // 20
+    filed = [m for m in order if true_classes(m.id)]
+    for m in filed[:cut]:
+        own = most_specific(true_classes(m.id))
+        lost = rng.choice(own)
+        parents[m.id] = tuple(sorted({*(p for p in own if p != lost), parent_of[lost]}))
+        missing[m.id] = lost
+    for m in [m for m in order if m.id not in parents][:cut]:
+        truth = true_classes(m.id)
+        choices = [g.id for g in groups() if g.id not in truth
+                   and not any(g.id in ancestors_of(t) for t in truth)]
+        bad = rng.choice(choices)
+        parents[m.id] = tuple(sorted({*most_specific(truth), bad} - {ROOT}))
+        wrong[m.id] = bad
+    return parents, missing, wrong
+
+
+class FlagFigures(NamedTuple):
+    recall: float  # of the injected errors on learned classes, the share flagged
+    precision: float  # of the flags, the share that name an injected error (any class)
+    recall_missing: float
+    recall_wrong: float
+    errors: int  # injected errors on learned classes
+    flags: int
+    right_elsewhere: int  # right flags naming an error on a class the model did not learn
+
+
+def flag_figures(found: set[tuple[str, str]], missing: dict[str, str], wrong: dict[str, str],
+                 learned: set[str]) -> FlagFigures:
+    """Recall over the injected errors on `learned` classes; precision over every flag.
+
+    A flag is right when it names an injected error, whatever its class: a review also flags a
+    wrong parent the model never learned, through an ancestor it did learn.
+    """
+    every = {*missing.items(), *wrong.items()}
+    injected = {(t, c) for t, c in every if c in learned}
+    right = found & every
+
+    def recall(group: dict[str, str]) -> float:
+        part = {(t, c) for t, c in group.items() if c in learned}
+        return len(part & found) / max(len(part), 1)
+
+    return FlagFigures(len(found & injected) / max(len(injected), 1), len(right) / max(len(found), 1),
+                       recall(missing), recall(wrong), len(injected), len(found), len(right - injected))
+
+
 def obo_text(mols: Iterable[Molecule], parents: dict[str, list[str]] | None = None,
              smiles_property: str = "smiles") -> str:
     """An OBO document: the groups as classes and `mols` as members.

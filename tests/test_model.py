@@ -7,7 +7,6 @@ sees the SMARTS. The full-size run is tests/benchmarks/bench_model.py.
 from __future__ import annotations
 
 import os
-import random
 import subprocess
 import sys
 from dataclasses import replace
@@ -279,49 +278,20 @@ def test_exclude_keeps_terms_out_of_training(subset: tuple) -> None:
     assert len(trained.member_ids) == 798
 
 
-@pytest.mark.xfail(strict=True, reason="not yet at the target: flags as the review raises them "
-                   "(margins, trust F1, opposition through ancestors, arbitration) reach recall 0.67 / "
-                   "precision 0.61 on this 2,000-member subset and 0.81 / 0.87 on the full benchmark "
-                   "(0.87 / 0.87 counting only classes with at least 20 true members; bench_model.py). "
-                   "Wrong parents put into classes with few true members are unlearnable, model errors "
-                   "on clean terms cost precision")
-def test_injected_errors_flagged_out_of_fold(subset: tuple) -> None:
-    """5% lose a true parent, 5% gain a wrong one; the model (out-of-fold) must flag them."""
-    mols = subset[0][:2000]
-    rng = random.Random(1)
-    leaves = [g.id for g in fgbench.groups()]
-    parents: dict[str, tuple[str, ...]] = {}
-    wrong: dict[str, str] = {}
-    missing: dict[str, str] = {}
-    shuffled = list(mols)
-    rng.shuffle(shuffled)
-    cut = len(mols) // 20
-    for m in shuffled[:cut]:
-        own = fgbench.most_specific(fgbench.true_classes(m.id))
-        if own == [fgbench.ROOT]:
-            continue
-        lost = rng.choice(own)
-        parent = next(g.parent for g in fgbench.groups() if g.id == lost)
-        parents[m.id] = tuple(sorted({*(p for p in own if p != lost), parent}))
-        missing[m.id] = lost
-    for m in shuffled[cut:2 * cut]:
-        own = fgbench.most_specific(fgbench.true_classes(m.id))
-        truth = fgbench.true_classes(m.id)
-        choices = [g for g in leaves if g not in truth
-                   and not any(g in fgbench.ancestors_of(t) for t in truth)]
-        bad = rng.choice(choices)
-        parents[m.id] = tuple(sorted({*own, bad} - {fgbench.ROOT}))
-        wrong[m.id] = bad
-    onto = ontology_of(mols, parents)
+def test_injected_errors_flagged_out_of_fold() -> None:
+    """The issue's injected-error benchmark, whole: 5% of the 80% training split lose a true
+    parent, 5% gain a wrong one (tests/fgbench.py `inject`); the model, trained on the noisy
+    ontology and judging each member out-of-fold, must flag them as the review does."""
+    train_mols, _ = fgbench.split(seed=0)
+    parents, missing, wrong = fgbench.inject(train_mols)
+    onto = ontology_of(train_mols, parents)
     trained = train(onto, CONFIG, Store(None))
     assert trained is not None
-    found = flagged(trained, onto, {m.id: m.smiles for m in mols})
-    injected = {(t, c) for t, c in missing.items()} | {(t, c) for t, c in wrong.items()}
-    injected = {(t, c) for t, c in injected if c in trained.classes}
-    hits = found & injected
-    recall = len(hits) / len(injected)
-    precision = len(hits) / max(len(found), 1)
-    assert recall >= 0.9 and precision >= 0.9, (recall, precision)  # the issue's target
+    found = flagged(trained, onto, {m.id: m.smiles for m in train_mols})
+    figures = fgbench.flag_figures(found, missing, wrong, set(trained.classes))
+    # The issue's target: recall >= 0.9 at precision >= 0.9, both kinds of error together.
+    assert figures.recall >= 0.9 and figures.precision >= 0.9, figures
+    assert figures.recall_missing >= 0.8 and figures.recall_wrong >= 0.8, figures
 
 
 def flagged(model: Model, onto: Ontology, term_smiles: dict[str, str],

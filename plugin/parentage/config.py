@@ -24,7 +24,7 @@ class ConfigError(ParentageError):
 @dataclass(frozen=True)
 class ModelSettings:
     min_members: int = 20
-    fingerprint: str = "morgan"  # morgan | featmorgan | atompair | torsion
+    fingerprint: str = "morgan+featmorgan"  # morgan, featmorgan, atompair, torsion, or several joined by +
     radius: int = 2
     size: int = 16384  # 2048 bits lose ~2.5 points of micro-F1 to collisions (bench_model.py)
     folds: int = 5

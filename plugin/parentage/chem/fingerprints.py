@@ -30,31 +30,60 @@ Bits = np.ndarray  # sorted uint32 bit positions
 
 def settings_key(settings: ModelSettings) -> str:
     """What determines a fingerprint: kind, radius (where it applies) and size."""
-    radius = f"-r{settings.radius}" if settings.fingerprint in ("morgan", "featmorgan") else ""
+    radius = f"-r{settings.radius}" if any(k in MORGAN for k in _kinds(settings)) else ""
     return f"{settings.fingerprint}{radius}-s{settings.size}"
 
 
-def _generator(settings: ModelSettings) -> Any:
-    if settings.fingerprint not in KINDS:
-        raise ParentageError(f"model.fingerprint: unknown kind {settings.fingerprint!r} "
-                             f"(known: {', '.join(KINDS)})")
-    if not 64 <= settings.size <= 1 << 24:
-        raise ParentageError(f"model.size must be between 64 and {1 << 24}, not {settings.size}")
+MORGAN = ("morgan", "featmorgan")
+# The bits of a combined kind's second and later parts are moved by an odd multiplier and an
+# offset before folding, so equal positions of two parts do not always land on one bit.
+_MIX = 0x9E3779B1
+
+
+def _kinds(settings: ModelSettings) -> list[str]:
+    """The parts of `settings.fingerprint`: one kind, or kinds joined by `+`."""
+    kinds = [k.strip() for k in settings.fingerprint.split("+")]
+    unknown = [k for k in kinds if k not in KINDS]
+    if unknown or len(set(kinds)) != len(kinds):
+        raise ParentageError(f"model.fingerprint: {settings.fingerprint!r} is not one kind or distinct "
+                             f"kinds joined by '+' (known: {', '.join(KINDS)})")
+    return kinds
+
+
+class Generator:
+    """RDKit generators of each part of a (possibly combined) fingerprint kind."""
+
+    def __init__(self, settings: ModelSettings) -> None:
+        if not 64 <= settings.size <= 1 << 24:
+            raise ParentageError(f"model.size must be between 64 and {1 << 24}, not {settings.size}")
+        self.size = settings.size
+        self.kinds = _kinds(settings)
+        self.parts = [_part(kind, settings) for kind in self.kinds]
+
+    def place(self, part: int, bits: Iterable[int]) -> list[int]:
+        """Where part `part`'s own bit positions land in the combined fingerprint."""
+        if part == 0:
+            return list(bits)
+        return [(b * _MIX + part) % self.size for b in bits]
+
+    def bits(self, mol: Chem.Mol) -> Bits:
+        found: set[int] = set()
+        for i, generator in enumerate(self.parts):
+            found.update(self.place(i, generator.GetCountFingerprint(mol).GetNonzeroElements()))
+        return np.array(sorted(found), dtype=np.uint32)
+
+
+def _part(kind: str, settings: ModelSettings) -> Any:
     size = settings.size
-    if settings.fingerprint == "morgan":
+    if kind == "morgan":
         return generators.GetMorganGenerator(radius=settings.radius, fpSize=size)
-    if settings.fingerprint == "featmorgan":
+    if kind == "featmorgan":
         invariants = generators.GetMorganFeatureAtomInvGen()
         return generators.GetMorganGenerator(radius=settings.radius, fpSize=size,
                                              atomInvariantsGenerator=invariants)
-    if settings.fingerprint == "atompair":
+    if kind == "atompair":
         return generators.GetAtomPairGenerator(fpSize=size)
     return generators.GetTopologicalTorsionGenerator(fpSize=size)
-
-
-def _bits_of(generator: Any, mol: Chem.Mol) -> Bits:
-    found = generator.GetCountFingerprint(mol).GetNonzeroElements()
-    return np.array(sorted(found), dtype=np.uint32)
 
 
 def fingerprint_bits(smiles: Sequence[str], settings: ModelSettings, limits: Limits = DEFAULT_LIMITS,
@@ -64,7 +93,7 @@ def fingerprint_bits(smiles: Sequence[str], settings: ModelSettings, limits: Lim
     each structure bounded in time (see chem/bounded.py); a small one (a review's handful,
     already read within the bound by the structure tier) in this process. `wrap` may decorate
     the progress through the batch (a progress bar)."""
-    generator = _generator(settings)
+    generator = Generator(settings)
     out: list[Bits | None] = [None] * len(smiles)
     if len(smiles) >= bounded.SPLIT_AT:
         # Forked workers inherit the generator; each sends its bits back as a list.
@@ -78,13 +107,13 @@ def fingerprint_bits(smiles: Sequence[str], settings: ModelSettings, limits: Lim
     return out
 
 
-def _bits_or_none(text: str, generator: Any, limits: Limits) -> Bits | None:
+def _bits_or_none(text: str, generator: Generator, limits: Limits) -> Bits | None:
     with captured_log():
         mol, error, _ = parse_smiles(text, limits)
-        return None if mol is None or error else _bits_of(generator, mol)
+        return None if mol is None or error else generator.bits(mol)
 
 
-def _bits_list(text: str, generator: Any, limits: Limits) -> list[int] | None:
+def _bits_list(text: str, generator: Generator, limits: Limits) -> list[int] | None:
     bits = _bits_or_none(text, generator, limits)
     return None if bits is None else bits.tolist()
 
@@ -126,35 +155,44 @@ def bit_atoms(smiles: str, settings: ModelSettings, bits: Iterable[int],
     """For each wanted bit, the atoms (0-based indices) of the environments that set it.
 
     Morgan bits name a centre atom and a radius; the atoms are that environment's atoms. Other
-    kinds report the atoms RDKit's AdditionalOutput assigns to each bit.
+    kinds report the atoms RDKit's AdditionalOutput assigns to each bit. Each part of a
+    combined kind reports the bits it sets, where they land in the combined fingerprint.
     """
     wanted = {int(b) for b in bits}
     with captured_log():
         mol, error, _ = parse_smiles(smiles, limits)
         if mol is None or error:
             return {}
-        generator = _generator(settings)
-        extra = generators.AdditionalOutput()
-        morgan = settings.fingerprint in ("morgan", "featmorgan")
-        if morgan:
-            extra.AllocateBitInfoMap()
-        else:
-            extra.AllocateAtomToBits()
-        generator.GetCountFingerprint(mol, additionalOutput=extra)
+        combined = Generator(settings)
         found: dict[int, set[int]] = {}
-        if morgan:
-            for bit, places in extra.GetBitInfoMap().items():
-                if bit not in wanted:
-                    continue
-                atoms = found.setdefault(bit, set())
-                for centre, radius in places:
-                    atoms.add(centre)
-                    for bond_idx in Chem.FindAtomEnvironmentOfRadiusN(mol, radius, centre):
-                        bond = mol.GetBondWithIdx(bond_idx)
-                        atoms.update((bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()))
-        else:
-            for atom, atom_bits in enumerate(extra.GetAtomToBits()):
-                for bit in atom_bits:
-                    if bit in wanted:
-                        found.setdefault(bit, set()).add(atom)
+        for part, (kind, generator) in enumerate(zip(combined.kinds, combined.parts)):
+            for bit, atoms in _part_atoms(mol, kind, generator).items():
+                (landed,) = combined.place(part, (bit,))
+                if landed in wanted:
+                    found.setdefault(landed, set()).update(atoms)
     return {bit: sorted(atoms) for bit, atoms in found.items()}
+
+
+def _part_atoms(mol: Chem.Mol, kind: str, generator: Any) -> dict[int, set[int]]:
+    """One part's own bit positions and the atoms that set them."""
+    extra = generators.AdditionalOutput()
+    morgan = kind in MORGAN
+    if morgan:
+        extra.AllocateBitInfoMap()
+    else:
+        extra.AllocateAtomToBits()
+    generator.GetCountFingerprint(mol, additionalOutput=extra)
+    found: dict[int, set[int]] = {}
+    if morgan:
+        for bit, places in extra.GetBitInfoMap().items():
+            atoms = found.setdefault(bit, set())
+            for centre, radius in places:
+                atoms.add(centre)
+                for bond_idx in Chem.FindAtomEnvironmentOfRadiusN(mol, radius, centre):
+                    bond = mol.GetBondWithIdx(bond_idx)
+                    atoms.update((bond.GetBeginAtomIdx(), bond.GetEndAtomIdx()))
+    else:
+        for atom, atom_bits in enumerate(extra.GetAtomToBits()):
+            for bit in atom_bits:
+                found.setdefault(bit, set()).add(atom)
+    return found

@@ -28,7 +28,7 @@ from parentage.tiers import Verdict
 
 NAMESPACE = "model"
 LATEST = "model-latest"  # settings + paths -> key of the newest model, for reuse across commits
-FORMAT = 4
+FORMAT = 5
 _MAGIC = b"parentage-model\n"
 _ALIGN = 64  # every array starts on a 64-byte boundary of the stored value
 OOF_FLOOR = 1e-3  # out-of-fold probabilities at or below this are not stored (every `low` is above)
