@@ -140,24 +140,23 @@ def test_training_members_judged_out_of_fold(model: Model, subset: tuple) -> Non
 
 
 def test_nearest_member_matches_rdkit_tanimoto(model: Model, subset: tuple) -> None:
-    """The pruned search is exact: the same best similarity as RDKit's BulkTanimotoSimilarity."""
+    """The pruned search is exact: the same best similarity as RDKit's BulkTanimotoSimilarity
+    over RDKit's Morgan radius-2 fingerprints of the fingerprint's first part's size."""
+    from rdkit.Chem import rdFingerprintGenerator
+
     from parentage.chem.fingerprints import fingerprint_bits
 
-    refs = fingerprint_bits([m.smiles for m in subset[0]], SETTINGS)
-    vectors = []
-    for bits in refs:
-        vector = DataStructs.ExplicitBitVect(SETTINGS.size)
-        vector.SetBitsFromList([int(b) for b in bits])
-        vectors.append(vector)
+    generator = rdFingerprintGenerator.GetMorganGenerator(radius=2, fpSize=SETTINGS.part_size)
+    vectors = [generator.GetFingerprint(Chem.MolFromSmiles(m.smiles)) for m in subset[0]]
     assert len(vectors) == len(model.member_ids)
     queries = [m.smiles for m in subset[1][:150]] + [m.smiles for m in subset[0][:150]]
-    qbits = fingerprint_bits(queries, SETTINGS)
+    qbits = model.similarity_bits(fingerprint_bits(queries, SETTINGS))
     folds = np.array([-1] * 150 + [model.fold_of[m.id] for m in subset[0][:150]])
     index, best = model.neighbours().nearest(qbits, folds)
     ref_folds = np.array([model.fold_of[t] for t in model.member_ids])
-    for i, bits in enumerate(qbits):
-        query = DataStructs.ExplicitBitVect(SETTINGS.size)
-        query.SetBitsFromList([int(b) for b in bits])
+    for i, smiles in enumerate(queries):
+        query = generator.GetFingerprint(Chem.MolFromSmiles(smiles))
+        assert sorted(query.GetOnBits()) == qbits[i].tolist()
         sims = np.array(DataStructs.BulkTanimotoSimilarity(query, vectors))  # RDKit: the reference
         if folds[i] >= 0:
             sims[ref_folds == folds[i]] = -1.0  # a training member is judged out of its fold

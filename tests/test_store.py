@@ -1,6 +1,7 @@
 """The SQLite store: round trips, version stamps, parallel writers, location, and cache hits."""
 from __future__ import annotations
 
+import io
 import json
 import multiprocessing
 import os
@@ -88,7 +89,15 @@ def test_model_file_round_trip_and_damage(tmp_path: Path) -> None:
     back = Model.from_bytes(store.get_file("model", "k") or b"")
     for name, values in arrays.items():
         assert back.arrays[name].dtype == values.dtype and np.array_equal(back.arrays[name], values)
+        assert back.arrays[name].ctypes.data % 64 == 0  # a view of the mapped file, aligned
+        assert not back.arrays[name].flags.writeable
     assert back.revision == "r"
+    # The file is an ordinary .npz: numpy's own reader, pickles refused, finds the same arrays.
+    with np.load(io.BytesIO(blob), allow_pickle=False) as plain:
+        assert sorted(plain.files) == sorted([*arrays, "meta.json"])
+        for name, values in arrays.items():
+            assert np.array_equal(plain[name], values)
+    assert Model.from_bytes(blob).arrays["ptr"].tolist() == [0, 5, 9]  # from bytes as well
     # A damaged or foreign file is one clear error, never a crash or a pickle load.
     for damaged in (blob[: len(blob) // 2], b"not a model", blob.replace(b"<f2", b"|O8", 1)):
         with pytest.raises(ParentageError, match="stored model is unreadable"):

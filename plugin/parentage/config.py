@@ -33,6 +33,17 @@ class ModelSettings:
     retrain_after: int = 200  # changed structured terms since training before a retrain
     seed: int = 0
 
+    @property
+    def kinds(self) -> list[str]:
+        """The fingerprint's parts: one kind, or kinds joined by `+`."""
+        return [k.strip() for k in self.fingerprint.split("+")]
+
+    @property
+    def part_size(self) -> int:
+        """Bits of each part: part k folds into [k * part_size, (k + 1) * part_size). The
+        first part's bits alone measure similarity to training members."""
+        return self.size // max(1, len(self.kinds))
+
 
 @dataclass(frozen=True)
 class Limits:

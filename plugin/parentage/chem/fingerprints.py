@@ -25,6 +25,7 @@ from parentage.store import Store
 
 DEFAULT_LIMITS = Limits()
 KINDS = ("morgan", "featmorgan", "atompair", "torsion")
+MORGAN = ("morgan", "featmorgan")  # the kinds with a radius
 Bits = np.ndarray  # sorted uint32 bit positions
 
 
@@ -34,15 +35,9 @@ def settings_key(settings: ModelSettings) -> str:
     return f"{settings.fingerprint}{radius}-s{settings.size}"
 
 
-MORGAN = ("morgan", "featmorgan")
-# The bits of a combined kind's second and later parts are moved by an odd multiplier and an
-# offset before folding, so equal positions of two parts do not always land on one bit.
-_MIX = 0x9E3779B1
-
-
 def _kinds(settings: ModelSettings) -> list[str]:
-    """The parts of `settings.fingerprint`: one kind, or kinds joined by `+`."""
-    kinds = [k.strip() for k in settings.fingerprint.split("+")]
+    """The parts of `settings.fingerprint`, checked: one kind, or distinct kinds joined by `+`."""
+    kinds = settings.kinds
     unknown = [k for k in kinds if k not in KINDS]
     if unknown or len(set(kinds)) != len(kinds):
         raise ParentageError(f"model.fingerprint: {settings.fingerprint!r} is not one kind or distinct "
@@ -51,36 +46,38 @@ def _kinds(settings: ModelSettings) -> list[str]:
 
 
 class Generator:
-    """RDKit generators of each part of a (possibly combined) fingerprint kind."""
+    """RDKit generators of each part of a (possibly combined) fingerprint kind.
+
+    Part k folds into its own range of `settings.part_size` bits from k * part_size, so the
+    parts never share a bit and the first part's bits can be read alone (the model tier's
+    similarity to training members is Tanimoto over them: Morgan bits by default).
+    """
 
     def __init__(self, settings: ModelSettings) -> None:
         if not 64 <= settings.size <= 1 << 24:
             raise ParentageError(f"model.size must be between 64 and {1 << 24}, not {settings.size}")
-        self.size = settings.size
         self.kinds = _kinds(settings)
-        self.parts = [_part(kind, settings) for kind in self.kinds]
+        self.part_size = settings.part_size
+        self.parts = [_part(kind, settings.radius, self.part_size) for kind in self.kinds]
 
     def place(self, part: int, bits: Iterable[int]) -> list[int]:
         """Where part `part`'s own bit positions land in the combined fingerprint."""
-        if part == 0:
-            return list(bits)
-        return [(b * _MIX + part) % self.size for b in bits]
+        offset = part * self.part_size
+        return [offset + b for b in bits]
 
     def bits(self, mol: Chem.Mol) -> Bits:
-        found: set[int] = set()
+        found: list[int] = []
         for i, generator in enumerate(self.parts):
-            found.update(self.place(i, generator.GetCountFingerprint(mol).GetNonzeroElements()))
+            found += self.place(i, generator.GetCountFingerprint(mol).GetNonzeroElements())
         return np.array(sorted(found), dtype=np.uint32)
 
 
-def _part(kind: str, settings: ModelSettings) -> Any:
-    size = settings.size
+def _part(kind: str, radius: int, size: int) -> Any:
     if kind == "morgan":
-        return generators.GetMorganGenerator(radius=settings.radius, fpSize=size)
+        return generators.GetMorganGenerator(radius=radius, fpSize=size)
     if kind == "featmorgan":
         invariants = generators.GetMorganFeatureAtomInvGen()
-        return generators.GetMorganGenerator(radius=settings.radius, fpSize=size,
-                                             atomInvariantsGenerator=invariants)
+        return generators.GetMorganGenerator(radius=radius, fpSize=size, atomInvariantsGenerator=invariants)
     if kind == "atompair":
         return generators.GetAtomPairGenerator(fpSize=size)
     return generators.GetTopologicalTorsionGenerator(fpSize=size)

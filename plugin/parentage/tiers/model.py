@@ -22,6 +22,7 @@ import numpy as np
 from parentage._collection import collector_paused
 from parentage.config import Config, ModelSettings
 from parentage.errors import ParentageError
+from parentage.npz import read_npz, write_npz
 from parentage.snapshot import Ontology, read_structure
 from parentage.store import Store
 from parentage.tiers import Verdict
@@ -29,8 +30,7 @@ from parentage.tiers import Verdict
 NAMESPACE = "model"
 LATEST = "model-latest"  # settings + paths -> key of the newest model, for reuse across commits
 FORMAT = 5
-_MAGIC = b"parentage-model\n"
-_ALIGN = 64  # every array starts on a 64-byte boundary of the stored value
+META = "meta.json"  # the stored model's metadata member
 OOF_FLOOR = 1e-3  # out-of-fold probabilities at or below this are not stored (every `low` is above)
 
 
@@ -482,50 +482,21 @@ class Model:
             self._row_of = {t: i for i, t in enumerate(self.member_ids)}
         return self._row_of
 
-    # -- storage: arrays as raw bytes behind a JSON header, never pickle ----------------------
-    # Not .npz: an archive member cannot be mapped, so loading copied every array out of it
-    # (about 0.1 s for a 40 MB model), while a review touches only a few of them.
+    # -- storage: an uncompressed .npz (arrays) with a JSON member (metadata), never pickle --
+    # Each array is read back as a view of the mapped file (parentage/npz.py): a review
+    # touches a few of them, and copying every array out took about 0.1 s for a 40 MB model.
     def to_bytes(self) -> bytes:
-        table, parts, at = [], [], 0
-        for name, values in self.arrays.items():
-            values = np.ascontiguousarray(values)
-            if values.dtype.hasobject:
-                raise ValueError(f"model array {name} holds Python objects")
-            at += -at % _ALIGN
-            table.append([name, values.dtype.str, list(values.shape), at, values.nbytes])
-            parts.append((at, values.tobytes()))
-            at += values.nbytes
-        head = json.dumps({"meta": self.meta, "arrays": table}).encode()
-        start = len(_MAGIC) + 8 + len(head)
-        start += -start % _ALIGN
-        out = bytearray(start + at)
-        out[:len(_MAGIC)] = _MAGIC
-        out[len(_MAGIC):len(_MAGIC) + 8] = len(head).to_bytes(8, "little")
-        out[len(_MAGIC) + 8:len(_MAGIC) + 8 + len(head)] = head
-        for offset, raw in parts:
-            out[start + offset:start + offset + len(raw)] = raw
-        return bytes(out)
+        return write_npz(self.arrays, {META: json.dumps(self.meta).encode()})
 
     @classmethod
     def from_bytes(cls, data: bytes | mmap.mmap) -> Model:
         """A model from `to_bytes` output; the arrays are views of `data`, not copies."""
         try:
-            if data[:len(_MAGIC)] != _MAGIC:
-                raise ValueError("not a stored model")
-            size = int.from_bytes(data[len(_MAGIC):len(_MAGIC) + 8], "little")
-            head = json.loads(data[len(_MAGIC) + 8:len(_MAGIC) + 8 + size])
-            start = len(_MAGIC) + 8 + size
-            start += -start % _ALIGN
-            arrays = {}
-            for name, dtype_text, shape, offset, nbytes in head["arrays"]:
-                dtype = np.dtype(dtype_text)
-                count = int(np.prod(shape, dtype=np.int64))
-                if dtype.hasobject or offset < 0 or count * dtype.itemsize != nbytes or \
-                        start + offset + nbytes > len(data):
-                    raise ValueError(f"array {name} does not fit the stored model")
-                arrays[name] = np.frombuffer(data, dtype, count, start + offset).reshape(shape)
-            meta = head["meta"]
-        except (ValueError, TypeError, KeyError, OverflowError) as exc:
+            arrays, others = read_npz(data)
+            meta = json.loads(others[META])
+            if not isinstance(meta, dict):
+                raise TypeError("its metadata is not a JSON object")
+        except (ValueError, TypeError, KeyError) as exc:
             raise ParentageError(f"stored model is unreadable ({exc}); delete the cache and retrain") from None
         known = {f.name for f in fields(ModelSettings)}
         figures = meta.get("figures", {}).values()
@@ -631,9 +602,17 @@ class Model:
             out[owner, self.arrays["oof_class"][take]] = self.arrays["oof_prob"][take]
         return out
 
+    def similarity_bits(self, bits: Sequence[np.ndarray]) -> list[np.ndarray]:
+        """The bits similarity to training members is measured on: the fingerprint's first part
+        (Morgan by default; see `ModelSettings.part_size`)."""
+        end = self.settings.part_size
+        if end >= self.settings.size:
+            return list(bits)
+        return [b[:np.searchsorted(b, end)] for b in bits]
+
     def neighbours(self) -> Neighbours:
         if self._neighbours is None:
-            self._neighbours = Neighbours(self.arrays, self.settings.size)
+            self._neighbours = Neighbours(self.arrays, self.settings.part_size)
         return self._neighbours
 
     def decide(self, probs: np.ndarray) -> tuple[set[str], set[str]]:
@@ -738,7 +717,7 @@ class Model:
         fold_of = self.fold_of
         folds = np.array([fold_of.get(t, -1) for t in rids], dtype=np.int64)
         probs = self.probabilities(bits, rids)
-        near, sims = self.neighbours().nearest(bits, folds)
+        near, sims = self.neighbours().nearest(self.similarity_bits(bits), folds)
         wanted = None if asserted is None else [set(asserted.get(t, ())) for t in rids]
         rows = self.verdict_rows(rids, probs, sims, near, wanted)
         if evidence:

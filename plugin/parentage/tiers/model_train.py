@@ -496,9 +496,12 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
         "ancestors": {c: sorted(a) for c, a in ancestors.items()},
         "disjoint": [list(p) for p in disjoint],
     }
-    indptr = np.zeros(len(kept) + 1, dtype=np.int64)
-    np.cumsum([len(b) for b in kept], out=indptr[1:])
-    flat = np.concatenate(kept)
+    # Similarity to members is measured on the fingerprint's first part (Model.similarity_bits).
+    end = settings.part_size
+    first = [b[:np.searchsorted(b, end)] for b in kept] if end < settings.size else kept
+    indptr = np.zeros(len(first) + 1, dtype=np.int64)
+    np.cumsum([len(b) for b in first], out=indptr[1:])
+    flat = np.concatenate(first)
     arrays: dict[str, np.ndarray] = {"weights": weights, "bias": bias,
               "platt": calib, "thresholds": thresholds, "low": low, "high": high, "ref_fold": fold,
               "oof_ptr": oof_probs.indptr.astype(np.int64), "oof_class": oof_probs.indices.astype(np.int32),
@@ -506,7 +509,7 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
               "member_hash": np.array([bits_hash(b) for b in kept], dtype=np.uint64),
               "member_ids": np.array([m.id.encode() for m in members], dtype=np.bytes_),
               "digests": np.array([m.digest.encode() for m in members], dtype=np.bytes_),
-              **Neighbours.index(indptr, flat, settings.size)}
+              **Neighbours.index(indptr, flat, end)}
     model = Model(arrays, meta)
     figures, summary = evaluate_out_of_fold(model, kept, fold, oof_probs, y,
                                             core=max(1, settings.min_members // 4))
@@ -533,7 +536,7 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
         sample = np.sort(np.random.default_rng(0).choice(len(bits), EVAL_SAMPLE, replace=False))
     # A query's candidate members grow with the members: queries at a time are kept near
     # 4M / members, 20 at 200k (256 at once took 856 MB there, and longer than 20 at once).
-    _, sims[sample] = model.neighbours().nearest([bits[i] for i in sample.tolist()],
+    _, sims[sample] = model.neighbours().nearest(model.similarity_bits([bits[i] for i in sample.tolist()]),
                                                  fold[sample].astype(np.int64),
                                                  chunk=max(8, min(256, 4_000_000 // max(len(bits), 1))))
     n, k = y.shape

@@ -1,0 +1,95 @@
+"""Arrays as an ordinary `.npz` file that can also be read without copying.
+
+The archive is uncompressed (ZIP_STORED) and each member's data starts on a 64-byte boundary
+(padding goes in the local header's extra field, as Android's zipalign does); numpy's `.npy`
+header pads itself to 64 bytes too. So `numpy.load` reads the file as any `.npz`, and
+`read_npz` returns each array as a view of the mapped file: a review touches a few of a
+stored model's arrays and reads only those pages. Arrays of Python objects are refused both
+ways: nothing is ever unpickled.
+"""
+from __future__ import annotations
+
+import io
+import mmap
+import zipfile
+from collections.abc import Mapping
+
+import numpy as np
+
+ALIGN = 64
+_LOCAL_HEADER = 30  # fixed part of a zip local file header
+_PAD_ID = 0xD935  # the extra-field id zipalign uses for padding
+_EPOCH = (1980, 1, 1, 0, 0, 0)  # fixed member dates: equal arrays give equal bytes
+
+
+def write_npz(arrays: Mapping[str, np.ndarray], others: Mapping[str, bytes] | None = None) -> bytes:
+    """`arrays` as `<name>.npy` members and `others` (e.g. JSON) as members of their own name."""
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_STORED, allowZip64=True) as archive:
+        for name, values in arrays.items():
+            values = np.ascontiguousarray(values)
+            if values.dtype.hasobject:
+                raise ValueError(f"array {name} holds Python objects")
+            member = io.BytesIO()
+            np.lib.format.write_array(member, values, allow_pickle=False)
+            _write(archive, out, name + ".npy", member.getvalue())
+        for name, raw in (others or {}).items():
+            _write(archive, out, name, raw)
+    return out.getvalue()
+
+
+def _write(archive: zipfile.ZipFile, out: io.BytesIO, name: str, raw: bytes) -> None:
+    info = zipfile.ZipInfo(name, date_time=_EPOCH)
+    info.compress_type = zipfile.ZIP_STORED
+    start = out.tell() + _LOCAL_HEADER + len(name.encode())
+    pad = -(start + 4) % ALIGN  # an extra-field record is 4 bytes of id and length, then data
+    info.extra = _PAD_ID.to_bytes(2, "little") + pad.to_bytes(2, "little") + bytes(pad)
+    archive.writestr(info, raw)
+
+
+def read_npz(data: bytes | mmap.mmap) -> tuple[dict[str, np.ndarray], dict[str, bytes]]:
+    """(arrays, other members) of `write_npz` output; the arrays are views of `data`.
+
+    Raises ValueError for anything that is not such a file: compressed or misplaced members,
+    object arrays, arrays that do not fit their member.
+    """
+    source = io.BytesIO(data) if isinstance(data, bytes) else data
+    try:
+        archive = zipfile.ZipFile(source)  # type: ignore[arg-type]
+    except zipfile.BadZipFile as exc:
+        raise ValueError(f"not an .npz file ({exc})") from None
+    arrays: dict[str, np.ndarray] = {}
+    others: dict[str, bytes] = {}
+    with archive:
+        for info in archive.infolist():
+            if info.compress_type != zipfile.ZIP_STORED:
+                raise ValueError(f"member {info.filename} is compressed")
+            head = bytes(data[info.header_offset:info.header_offset + _LOCAL_HEADER])
+            if len(head) != _LOCAL_HEADER or head[:4] != b"PK\x03\x04":
+                raise ValueError(f"member {info.filename} has no local header")
+            start = (info.header_offset + _LOCAL_HEADER + int.from_bytes(head[26:28], "little")
+                     + int.from_bytes(head[28:30], "little"))
+            end = start + info.file_size
+            if end > len(data):
+                raise ValueError(f"member {info.filename} runs past the end of the file")
+            if info.filename.endswith(".npy"):
+                arrays[info.filename[:-4]] = _npy_view(data, start, end, info.filename)
+            else:
+                others[info.filename] = bytes(data[start:end])
+    return arrays, others
+
+
+def _npy_view(data: bytes | mmap.mmap, start: int, end: int, name: str) -> np.ndarray:
+    header = io.BytesIO(bytes(data[start:min(end, start + 65536)]))
+    version = np.lib.format.read_magic(header)
+    if version == (1, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_1_0(header)
+    elif version == (2, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_2_0(header)
+    else:
+        raise ValueError(f"member {name} has .npy version {version}")
+    count = int(np.prod(shape, dtype=np.int64))
+    offset = start + header.tell()
+    if dtype.hasobject or fortran or offset + count * dtype.itemsize > end:
+        raise ValueError(f"member {name} does not hold a plain array that fits it")
+    return np.frombuffer(data, dtype, count, offset).reshape(shape)
