@@ -243,7 +243,7 @@ def speed(train_mols: list, test_mols: list, results: dict[int, Model], config: 
                 for asserted, evidence in ((None, False), (asked, True)):
                     timings.append(best_of(stored.judge, ids, bits, smiles, asserted, evidence))
                 folds = np.array([stored.fold_of.get(t, -1) for t in ids])
-                search = best_of(stored.neighbours().nearest, bits, folds)
+                search = best_of(stored.neighbours().nearest, stored.similarity_bits(bits), folds)
                 probs = best_of(stored.probabilities, bits, ids)
                 n = len(ids)
                 print(f"  predict, {name}, {n} {kind}: from known fingerprints (the review's path, "
