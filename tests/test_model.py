@@ -267,6 +267,20 @@ def test_trust_f1_sets_misfiled_members_aside(subset: tuple) -> None:
         assert f.trust_f1 >= f.f1
 
 
+def test_class_abstention_counts_the_members_abstained_on(subset: tuple) -> None:
+    """Abstention per class is the share of its members the model will not judge."""
+    mols = subset[0][:600]
+    for min_similarity, expected in ((1.01, 1.0), (0.0, None)):  # Tanimoto never exceeds 1
+        settings = replace(SETTINGS, folds=3, min_similarity=min_similarity)
+        trained = train(ontology_of(mols), replace(CONFIG, model=settings), Store(None))
+        assert trained is not None
+        rates = [f.abstention for f in trained.figures.values()]
+        if expected is not None:
+            assert rates == [expected] * len(rates) and trained.summary["abstention"] == 1.0
+        else:  # nothing is unfamiliar; only terms no class is confident about are left
+            assert max(rates) < 0.5 and trained.summary["abstention"] < 0.2
+
+
 def test_exclude_keeps_terms_out_of_training(subset: tuple) -> None:
     mols = subset[0][:800]
     held = {mols[0].id, mols[1].id}

@@ -46,6 +46,7 @@ def test_train_then_evaluate_json(repo: str, tmp_path, monkeypatch: pytest.Monke
     figures = {c["class"]: c for c in data["classes"]}
     # The nesting root of RDKit's hierarchy groups with hundreds of members among these 500.
     assert figures[amine]["support"] >= 20 and 0.0 <= figures[amine]["f1"] <= 1.0
+    assert all(0.0 <= c["abstention"] <= 1.0 for c in data["classes"])
     assert data["summary"]["folds"] == 3
     assert len(data["revision"]) == 40  # the commit it was trained on
 

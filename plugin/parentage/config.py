@@ -26,7 +26,7 @@ class ModelSettings:
     min_members: int = 20
     fingerprint: str = "morgan+featmorgan"  # morgan, featmorgan, atompair, torsion, or several joined by +
     radius: int = 2
-    size: int = 16384  # 2048 bits lose ~2.5 points of micro-F1 to collisions (bench_model.py)
+    size: int = 16384  # all parts together; 2048 score 0.4 points of micro-F1 lower (bench_model.py)
     folds: int = 5
     min_f1: float = 0.8  # a class's cross-validated F1 needed for its model verdicts to count
     min_similarity: float = 0.3  # below this Tanimoto to every training member: abstain

@@ -8,7 +8,7 @@ from typing import Any
 from parentage.commands.common import emit, open_workspace, parser
 from parentage.errors import ParentageError
 from parentage.snapshot import Ontology
-from parentage.tiers.model import Model, load_or_train, stored_model
+from parentage.tiers.model import Model, load_or_train, stored_model, trust_core
 
 
 def figures_json(model: Model, ontology: Ontology) -> dict[str, Any]:
@@ -30,15 +30,17 @@ def figures_markdown(model: Model, ontology: Ontology, min_f1: float) -> str:
              (f"{s.get('members')} members, {len(model.classes)} classes; micro-F1 {s.get('micro_f1')}, "
               f"macro-F1 {s.get('macro_f1')}, abstention {s.get('abstention', 0):.1%}. "
               f"Verdicts count only for classes whose trust F1 (F1 with the members the model "
-              f"confidently contradicts set aside, while they are at most half the class) is "
+              f"confidently contradicts set aside, while at least {trust_core(model.settings)} "
+              f"members are left) is "
               f">= {min_f1} (model.min_f1)."), "",
-             "| class | name | precision | recall | F1 | trust F1 | support | trusted |",
-             "|---|---|---:|---:|---:|---:|---:|---|"]
+             "| class | name | precision | recall | F1 | trust F1 | support | abstention | trusted |",
+             "|---|---|---:|---:|---:|---:|---:|---:|---|"]
     for c in sorted(model.classes, key=lambda c: (-model.figures[c].f1, c)):
         f = model.figures[c]
         name = ontology.terms[c].name if c in ontology.terms else ""
         lines.append(f"| {_cell(c)} | {_cell(name or '')} | {f.precision:.3f} | {f.recall:.3f} | "
-                     f"{f.f1:.3f} | {f.trust_f1:.3f} | {f.support} | {'yes' if f.trust_f1 >= min_f1 else 'no'} |")
+                     f"{f.f1:.3f} | {f.trust_f1:.3f} | {f.support} | {f.abstention:.1%} | "
+                     f"{'yes' if f.trust_f1 >= min_f1 else 'no'} |")
     return "\n".join(lines)
 
 

@@ -29,7 +29,7 @@ from parentage.tiers import Verdict
 
 NAMESPACE = "model"
 LATEST = "model-latest"  # settings + paths -> key of the newest model, for reuse across commits
-FORMAT = 5
+FORMAT = 6
 META = "meta.json"  # the stored model's metadata member
 OOF_FLOOR = 1e-3  # out-of-fold probabilities at or below this are not stored (every `low` is above)
 
@@ -78,9 +78,16 @@ class ClassFigures(NamedTuple):
     recall: float
     f1: float
     support: int  # members of the class among the judged terms
-    # F1 with the members whose filing the model confidently contradicts set aside (while they
-    # are at most half the class): what `model.min_f1` is compared with.
+    # F1 with the members whose filing the model confidently contradicts set aside (while a
+    # quarter of model.min_members are left): what `model.min_f1` is compared with.
     trust_f1: float
+    abstention: float  # share of the class's members the model abstained on (sampled members)
+
+
+def trust_core(settings: ModelSettings) -> int:
+    """Members a class must keep, those the model contradicts set aside, for its trust F1 to be
+    measured without them: a quarter of `model.min_members`."""
+    return max(1, settings.min_members // 4)
 
 
 def bits_hash(bits: np.ndarray) -> int:
@@ -496,12 +503,12 @@ class Model:
             meta = json.loads(others[META])
             if not isinstance(meta, dict):
                 raise TypeError("its metadata is not a JSON object")
-        except (ValueError, TypeError, KeyError) as exc:
+            known = {f.name for f in fields(ModelSettings)}
+            older = (meta.get("format") != FORMAT or set(meta.get("settings", {})) != known
+                     or any(len(f) != len(ClassFigures._fields) for f in meta.get("figures", {}).values()))
+        except (ValueError, TypeError, KeyError, AttributeError) as exc:
             raise ParentageError(f"stored model is unreadable ({exc}); delete the cache and retrain") from None
-        known = {f.name for f in fields(ModelSettings)}
-        figures = meta.get("figures", {}).values()
-        if (meta.get("format") != FORMAT or set(meta.get("settings", {})) != known
-                or any(len(f) != len(ClassFigures._fields) for f in figures)):
+        if older:
             raise ParentageError("stored model has an older layout; run 'parentage model train'")
         return cls(arrays, meta)
 

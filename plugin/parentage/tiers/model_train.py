@@ -45,6 +45,7 @@ from parentage.tiers.model import (
     eligible_classes,
     hierarchy_of,
     members_of,
+    trust_core,
 )
 
 T = TypeVar("T")
@@ -395,12 +396,12 @@ def doubted_rows(scores: np.ndarray, truth: np.ndarray) -> list[np.ndarray]:
     round got wrong, and unlearning it teaches the confusion (in the demo, an N-formyl amide
     then looked like an aldehyde: p 0.004 -> 0.17). Measured on the functional-group benchmark
     with injected errors (bench_model.py; precision counts a flag of any injected error as
-    right): one round, recall 0.797 at precision 0.921; two rounds without both kinds in the
-    fits, 0.886 at 0.942 (the false suggestions it removed were mostly structural neighbours
-    of a misfiled member); with the trust core of `evaluate_out_of_fold` too, 0.919 at 0.945,
-    and 0.914 at 0.927 keeping doubted non-members in the fits, as here. A doubted member
-    whose filing is right stays doubted: its own probability comes from a fold model that
-    never saw it, in either round.
+    right; similarity then over all bits): one round, recall 0.797 at precision 0.921; two
+    rounds without both kinds in the fits, 0.886 at 0.942 (the false suggestions it removed
+    were mostly structural neighbours of a misfiled member); with the trust core of
+    `evaluate_out_of_fold` too, 0.919 at 0.945, and 0.914 at 0.927 keeping doubted non-members
+    in the fits, as here. A doubted member whose filing is right stays doubted: its own
+    probability comes from a fold model that never saw it, in either round.
     """
     _, _, low, high, probs = calibrate(scores, truth)
     out = []
@@ -512,7 +513,7 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
               **Neighbours.index(indptr, flat, end)}
     model = Model(arrays, meta)
     figures, summary = evaluate_out_of_fold(model, kept, fold, oof_probs, y,
-                                            core=max(1, settings.min_members // 4))
+                                            core=trust_core(settings))
     model.meta["figures"] = {c: list(f) for c, f in figures.items()}
     model.meta["summary"] = summary
     return Model(arrays, model.meta)
@@ -526,7 +527,7 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
     `probs` and `y` are sparse (members, classes) out-of-fold probabilities and memberships;
     the decisions are made on dense runs of about `cells` (member, class) pairs. `core`: the
     members a class must keep, those the model contradicts set aside, for its trust F1 to be
-    measured without them (a quarter of `model.min_members`).
+    measured without them (`trust_core`).
     """
     # The neighbour search grows with members squared: past EVAL_SAMPLE members, similarity
     # (hence abstention) is measured on a fixed random sample and the rest count as judged.
@@ -541,7 +542,9 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
                                                  chunk=max(8, min(256, 4_000_000 // max(len(bits), 1))))
     n, k = y.shape
     abstained = np.zeros(n, dtype=bool)
-    tp, fp, fn, tp_t, fn_t, n_doubted, members = (np.zeros(k, dtype=np.int64) for _ in range(7))
+    measured = np.zeros(n, dtype=bool)
+    measured[sample] = True
+    tp, fp, fn, tp_t, fn_t, n_doubted, members, asked, refused = (np.zeros(k, dtype=np.int64) for _ in range(9))
     step = max(1, min(4096, cells // max(k, 1)))
     for start in range(0, n, step):
         part = slice(start, min(start + step, n))
@@ -549,7 +552,12 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
         decided = model.decisions(dense, sims[part])
         abstained[part] = decided.abstains
         judged = ~decided.abstains
-        yt, yp = y[part].toarray()[judged].astype(bool), decided.closed[judged, :k]
+        in_class = y[part].toarray().astype(bool)
+        # Per class: of its members whose similarity was measured, those abstained on.
+        inside = in_class & measured[part][:, None]
+        asked += inside.sum(0)
+        refused += (inside & decided.abstains[:, None]).sum(0)
+        yt, yp = in_class[judged], decided.closed[judged, :k]
         tp += (yt & yp).sum(0)
         fp += (~yt & yp).sum(0)
         fn += (yt & ~yp).sum(0)
@@ -576,7 +584,8 @@ def evaluate_out_of_fold(model: Model, bits: Sequence[np.ndarray], fold: np.ndar
         if 0 < n_doubted[j] and members[j] - n_doubted[j] >= core:
             trust = 2 * tp_t[j] / max(2 * tp_t[j] + fp[j] + fn_t[j], 1)
         figures[cls] = ClassFigures(round(p, 4), round(r, 4), round(f1, 4), int(support[j]),
-                                    round(float(max(trust, f1)), 4))
+                                    round(float(max(trust, f1)), 4),
+                                    round(float(refused[j] / asked[j]), 4) if asked[j] else 0.0)
     micro_p = tp.sum() / max(tp.sum() + fp.sum(), 1)
     micro_r = tp.sum() / max(tp.sum() + fn.sum(), 1)
     summary = {"members": n, "folds": int(fold.max()) + 1 if len(fold) else 0,
