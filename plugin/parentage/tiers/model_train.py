@@ -204,9 +204,9 @@ def chunk_width(members: int, classes: int) -> int:
 
 
 class Chunk(NamedTuple):
-    """The fold fits of a run of classes, from `start`."""
+    """The fold fits of a run of classes."""
 
-    start: int
+    cols: np.ndarray  # (width,) int64: the classes, by index
     scores: np.ndarray  # (members, width) float32: each member scored by the fold model that never saw it
     total: np.ndarray  # (size, width) float32: the weights summed over the fold models
     total_bias: np.ndarray  # (width,) float32
@@ -214,32 +214,35 @@ class Chunk(NamedTuple):
 
 def fold_fits(x: sparse.csr_matrix, positives: Sequence[np.ndarray], negatives: Negatives,
               fold: np.ndarray, seed: int, width: int, progress: bool | None,
-              doubted: Sequence[np.ndarray] | None = None, desc: str = "class fits") -> Iterator[Chunk]:
-    """The k fold fits of every class, `width` classes at a time, in class order.
+              doubted: Sequence[np.ndarray] | None = None, desc: str = "class fits",
+              classes: Sequence[int] | None = None) -> Iterator[Chunk]:
+    """The k fold fits of every class (or of `classes`), `width` classes at a time, in order.
 
     Only a chunk's scores and weight sums are held: a (members, classes) table of scores takes
     2.9 GB for the generated 200k ontology (200,000 members, 3,615 classes), and calibration
     wrote a second one. The fits run in two forked processes where the
     machine has two cores: each fit holds the GIL for much of its ~8 ms, so two threads took
     68.8 s where two processes took 43.0 s (the generated 50k ontology's fold fits).
-    `doubted` (per class, the rows the first round doubts) makes the second round.
+    `doubted` (per class, the rows the first round doubts) makes the second round. A class's
+    fits do not depend on the classes fitted beside it: the row cap comes from all classes.
     """
-    k_classes, k = len(positives), int(fold.max()) + 1
+    order = list(range(len(positives))) if classes is None else list(classes)
+    k = int(fold.max()) + 1
     keep = [fold != f for f in range(k)]
-    _WORK.update(x=x, seed=seed, cap=row_cap(k_classes), positives=positives, negatives=negatives,
+    _WORK.update(x=x, seed=seed, cap=row_cap(len(positives)), positives=positives, negatives=negatives,
                  keep=keep, pools=[np.flatnonzero(m) for m in keep], doubted=doubted)
     held = [np.flatnonzero(fold == f) for f in range(k)]
     held_x = [x[rows].astype(np.float32) for rows in held]
     workers = _workers()
-    pool = multiprocessing.get_context("fork").Pool(workers) if workers > 1 and k_classes * k > 50 else None
+    pool = multiprocessing.get_context("fork").Pool(workers) if workers > 1 and len(order) * k > 50 else None
     try:
-        done = pool.imap(_fit_task, range(k_classes), chunksize=4) if pool is not None \
-            else map(_fit_task, range(k_classes))
+        done = pool.imap(_fit_task, order, chunksize=4) if pool is not None else map(_fit_task, order)
         start, pending = 0, []
-        for fits in progress_bar(done, total=k_classes, desc=desc, enabled=progress):
+        for fits in progress_bar(done, total=len(order), desc=desc, enabled=progress):
             pending.append(fits)
-            if len(pending) == width or start + len(pending) == k_classes:
-                yield _score(start, pending, held, held_x)
+            if len(pending) == width or start + len(pending) == len(order):
+                cols = np.array(order[start:start + len(pending)], dtype=np.int64)
+                yield _score(cols, pending, held, held_x)
                 start, pending = start + len(pending), []
     finally:
         if pool is not None:
@@ -247,7 +250,7 @@ def fold_fits(x: sparse.csr_matrix, positives: Sequence[np.ndarray], negatives: 
         _WORK.clear()
 
 
-def _score(start: int, fits: Sequence[Sequence[Fit]], held: Sequence[np.ndarray],
+def _score(cols: np.ndarray, fits: Sequence[Sequence[Fit]], held: Sequence[np.ndarray],
            held_x: Sequence[sparse.csr_matrix]) -> Chunk:
     """Each fold's model scores its own held-out members and joins the sum, fold after fold."""
     n, size, width = sum(len(h) for h in held), held_x[0].shape[1], len(fits)
@@ -264,7 +267,7 @@ def _score(start: int, fits: Sequence[Sequence[Fit]], held: Sequence[np.ndarray]
         scores[rows] = xf @ current + bias
         total += current
         total_bias += bias
-    return Chunk(start, scores, total, total_bias)
+    return Chunk(cols, scores, total, total_bias)
 
 
 def _histograms(scores: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -376,12 +379,11 @@ def calibrate(scores: np.ndarray, y: np.ndarray) -> tuple[np.ndarray, np.ndarray
 def chunk_truth(chunk: Chunk, positives: Sequence[np.ndarray],
                 doubted: Sequence[np.ndarray] | None = None) -> np.ndarray:
     """(members, width) int8 labels of a chunk's classes: 1 member, 0 not, -1 doubted."""
-    width = chunk.scores.shape[1]
     truth = np.zeros(chunk.scores.shape, dtype=np.int8)
-    for i in range(width):
-        truth[positives[chunk.start + i], i] = 1
+    for i, j in enumerate(chunk.cols.tolist()):
+        truth[positives[j], i] = 1
         if doubted is not None:
-            truth[doubted[chunk.start + i], i] = -1
+            truth[doubted[j], i] = -1
     return truth
 
 
@@ -421,10 +423,10 @@ def sparse_rows(parts: Sequence[tuple[np.ndarray, np.ndarray, np.ndarray]],
                 shape: tuple[int, int]) -> sparse.csr_matrix:
     """One (members, classes) CSR matrix of the (rows, class columns, values) of each chunk."""
     rows = np.concatenate([p[0] for p in parts]).astype(np.int32)
-    # Each chunk's entries come row by row, chunks in class order: a stable sort by row
-    # leaves each row's classes ascending.
-    order = np.argsort(rows, kind="stable")
-    cols = np.concatenate([p[1] for p in parts]).astype(np.int32)[order]
+    cols = np.concatenate([p[1] for p in parts]).astype(np.int32)
+    # Chunks come in any class order: sorted by row, then class.
+    order = np.lexsort((cols, rows))
+    cols = cols[order]
     values = np.concatenate([p[2] for p in parts])[order]
     ptr = np.zeros(shape[0] + 1, dtype=np.int64)
     np.cumsum(np.bincount(rows, minlength=shape[0]), out=ptr[1:])
@@ -463,29 +465,48 @@ def train(ontology: Ontology, config: Config, store: Store, exclude: Iterable[st
     oof: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
     width = classes_per_chunk or chunk_width(n, n_classes)
     negatives = Negatives(members, classes, ontology)
-    # Round one finds the filings its out-of-fold model confidently contradicts; round two
-    # learns and is calibrated without them (see `doubted_rows`).
-    doubted: list[np.ndarray] = []
-    for chunk in fold_fits(x, positives, negatives, fold, settings.seed, width, progress,
-                           desc="class fits, first round"):
-        doubted += doubted_rows(chunk.scores, chunk_truth(chunk, positives))
-        del chunk
-    for chunk in fold_fits(x, positives, negatives, fold, settings.seed, width, progress, doubted):
-        span = slice(chunk.start, chunk.start + chunk.scores.shape[1])
-        truth = chunk_truth(chunk, positives, doubted)
-        calib[span], thresholds[span], low[span], high[span], probs = calibrate(chunk.scores, truth)
+
+    def settle(chunk: Chunk, doubted: Sequence[np.ndarray]) -> None:
+        """A chunk's classes, final: calibrated without their doubted rows, weights kept."""
+        cols = chunk.cols
+        calib[cols], thresholds[cols], low[cols], high[cols], probs = calibrate(
+            chunk.scores, chunk_truth(chunk, positives, doubted))
         # The model for terms outside training is the mean of the fold models: no extra fit,
         # and its scores keep the scale the out-of-fold Platt parameters were fitted on.
-        weights[:, span] = (chunk.total / k).astype(np.float16)
-        bias[span] = chunk.total_bias / k
+        weights[:, cols] = (chunk.total / k).astype(np.float16)
+        bias[cols] = chunk.total_bias / k
         # Only the out-of-fold probabilities above the floor are kept (as stored, but float32:
         # the figures below are measured on them, and no decision reads one at the floor).
-        rows, cols = np.nonzero(probs > OOF_FLOOR)
-        oof.append((rows.astype(np.int32), cols + chunk.start, probs[rows, cols]))
-        del chunk, probs, truth
+        rows, at = np.nonzero(probs > OOF_FLOOR)
+        oof.append((rows.astype(np.int32), cols[at], probs[rows, at]))
+
+    # Round one finds the filings its out-of-fold model confidently contradicts; round two
+    # fits again, without them, the classes where a doubted filing is a member's (see
+    # `doubted_rows`). The others' second fits would equal their first: they are settled now.
+    doubted: list[np.ndarray] = [np.zeros(0, np.int64)] * n_classes
+    refit: list[int] = []
+    for chunk in fold_fits(x, positives, negatives, fold, settings.seed, width, progress,
+                           desc="class fits, first round"):
+        truth = chunk_truth(chunk, positives)
+        same: list[int] = []
+        for i, rows in enumerate(doubted_rows(chunk.scores, truth)):
+            j = int(chunk.cols[i])
+            doubted[j] = rows
+            if (truth[rows, i] == 1).any():
+                refit.append(j)
+            else:
+                same.append(i)
+        if same:
+            settle(Chunk(chunk.cols[same], chunk.scores[:, same], chunk.total[:, same],
+                         chunk.total_bias[same]), doubted)
+        del chunk, truth
+    for chunk in fold_fits(x, positives, negatives, fold, settings.seed, width, progress, doubted,
+                           classes=refit):
+        settle(chunk, doubted)
+        del chunk
     del x
     oof_probs = sparse_rows(oof, (n, n_classes))
-    del oof
+    oof.clear()
     ancestors, disjoint = hierarchy_of(ontology, classes)
     meta: dict[str, Any] = {
         "format": FORMAT, "classes": classes, "settings": asdict(settings), "revision": revision,
