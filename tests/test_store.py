@@ -6,6 +6,8 @@ import json
 import multiprocessing
 import os
 import sqlite3
+import subprocess
+import sys
 import time
 import tracemalloc
 import zlib
@@ -98,6 +100,17 @@ def test_model_file_round_trip_and_damage(tmp_path: Path) -> None:
         for name, values in arrays.items():
             assert np.array_equal(plain[name], values)
     assert Model.from_bytes(blob).arrays["ptr"].tolist() == [0, 5, 9]  # from bytes as well
+    # The central directory as read by our reader and by the standard library's zipfile.
+    from parentage import npz
+
+    assert npz._members(blob) == npz._members_zip64(blob)
+    # Reading does not import zipfile (13 ms of a warm review's start-up).
+    path = tmp_path / "model.npz"
+    path.write_bytes(blob)
+    code = ("import sys; from parentage.tiers.model import Model; "
+            f"Model.from_bytes(open({str(path)!r}, 'rb').read()); print('zipfile' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+    assert out.stdout.strip() == "False"
     # A damaged or foreign file is one clear error, never a crash or a pickle load.
     for damaged in (blob[: len(blob) // 2], b"not a model", blob.replace(b"<f2", b"|O8", 1)):
         with pytest.raises(ParentageError, match="stored model is unreadable"):

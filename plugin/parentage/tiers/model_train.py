@@ -7,10 +7,10 @@ one-vs-rest logistic regression on counts, a kNN Tanimoto blend and a one-layer 
 Each class learns from a bounded set: all its members, members of its parents that are not in
 it (the negatives that look most alike), and a capped random sample of the rest. Every member
 is then scored by the fold model that never saw it, so Platt parameters, thresholds, margins
-and figures are fitted on out-of-fold scores of all members, whatever was sampled. The fits
-run twice: the second round leaves out, class by class, the filings the first round's
-out-of-fold model confidently contradicts (`doubted_rows`), so a misfiled member neither
-teaches its class to its neighbours nor bends the calibration. The fits
+and figures are fitted on out-of-fold scores of all members, whatever was sampled. A class
+whose members' filings the first round's out-of-fold model confidently contradicts is fitted
+again without them (`doubted_rows`), so a misfiled member neither teaches its class to its
+neighbours nor bends the calibration. The fits
 run in two processes where there are two cores. Nothing held grows with members times classes:
 memberships are sparse, the out-of-fold scores of a chunk of classes are calibrated as soon as
 its fits are in and only their probabilities above OOF_FLOOR are kept. Everything stored is a
