@@ -120,7 +120,11 @@ def _members_zip64(data: bytes | mmap.mmap) -> list[tuple[str, int, int, int]]:
 
 
 def _npy_view(data: bytes | mmap.mmap, start: int, end: int, name: str) -> np.ndarray:
-    header = io.BytesIO(bytes(data[start:min(end, start + 65536)]))
+    # Only the header is copied: magic (6), version (2), header length (2 or 4), header.
+    lead = bytes(data[start:min(end, start + 12)])
+    width = {1: 2, 2: 4}.get(lead[6] if len(lead) > 6 else 0, 2)
+    length = int.from_bytes(lead[8:8 + width], "little")
+    header = io.BytesIO(bytes(data[start:min(end, start + 8 + width + length)]))
     version = np.lib.format.read_magic(header)
     if version == (1, 0):
         shape, fortran, dtype = np.lib.format.read_array_header_1_0(header)
